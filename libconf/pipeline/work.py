@@ -1,0 +1,203 @@
+"""What a worker process does with one chunk of records: analyse each, build the rows.
+
+This is the only place the pipeline touches chemistry, and it does so through one
+call per molecule (``libconf.engine.analyze``), with a time guard around it.
+"""
+
+from __future__ import annotations
+
+import signal
+import threading
+from collections import Counter
+from collections.abc import Callable, Sequence
+from contextlib import contextmanager
+from dataclasses import dataclass
+
+from libconf.errors import InputError
+from libconf.pipeline.readers import Record, truncate_raw
+from libconf.pipeline.tables import TABLES, TableBuffer
+
+
+@dataclass(frozen=True)
+class AnalysisOptions:
+    temperature: float
+    medium: str
+    max_heavy_atoms: int
+    max_stereo_assignments: int
+    record_timeout: float | None  # seconds; None or 0 = no guard
+
+
+class RecordTimeout(BaseException):
+    # BaseException, so that a broad ``except Exception`` inside the engine cannot
+    # swallow the guard.
+    pass
+
+
+def _on_alarm(signum, frame):
+    raise RecordTimeout()
+
+
+@contextmanager
+def time_guard(seconds: float | None):
+    """Interrupt the block after ``seconds`` of wall time (main thread only).
+
+    SIGALRM interrupts Python code; a single long call inside RDKit's C++ code is
+    interrupted only when it returns to Python.
+    """
+    usable = (
+        seconds
+        and seconds > 0
+        and hasattr(signal, "setitimer")
+        and threading.current_thread() is threading.main_thread()
+    )
+    if not usable:
+        yield
+        return
+    previous = signal.signal(signal.SIGALRM, _on_alarm)
+    signal.setitimer(signal.ITIMER_REAL, seconds)
+    try:
+        yield
+    finally:
+        signal.setitimer(signal.ITIMER_REAL, 0)
+        signal.signal(signal.SIGALRM, previous)
+
+
+def default_analyzer() -> Callable:
+    from libconf.engine import analyze
+
+    return analyze
+
+
+def mol_from_molblock(text: str):
+    """An RDKit Mol from one SDF entry, or InputError with a reason."""
+    from rdkit import Chem, rdBase
+
+    with rdBase.BlockLogs():
+        mol = Chem.MolFromMolBlock(text)
+        if mol is not None:
+            return mol
+        loose = Chem.MolFromMolBlock(text, sanitize=False, removeHs=False)
+        if loose is None:
+            raise InputError(
+                "the molblock could not be read: its counts line, atom lines or bond "
+                "lines are malformed",
+                "parse",
+            )
+        problems = Chem.DetectChemistryProblems(loose)
+    if problems:
+        p = problems[0]
+        kind = p.GetProblemType()
+        if kind == "AtomValenceException":
+            idx = p.GetAtomIdx()
+            sym = loose.GetAtomWithIdx(idx).GetSymbol()
+            raise InputError(
+                f"valence error on {sym}{idx + 1} (atom {idx + 1} of the molblock): "
+                f"{p.Message()}",
+                "parse",
+            )
+        if kind == "KekulizeException":
+            raise InputError(f"aromatic ring cannot be kekulized: {p.Message()}", "parse")
+        raise InputError(f"the molecule is not valid chemistry: {p.Message()}", "parse")
+    raise InputError("the molblock could not be turned into a molecule", "parse")
+
+
+@dataclass
+class ChunkResult:
+    chunk: int
+    tables: dict  # name -> pyarrow.Table
+    counts: dict
+
+
+def analyse_chunk(
+    chunk: int,
+    records: Sequence[Record],
+    options: AnalysisOptions,
+    analyzer: Callable | None = None,
+) -> ChunkResult:
+    """Analyse the records of one chunk, in order; never raises for a bad record."""
+    from rdkit import rdBase
+
+    analyze = analyzer or default_analyzer()
+    buffers = {name: TableBuffer(name) for name in TABLES}
+    counts: Counter = Counter()
+    with rdBase.BlockLogs():  # reasons go to the errors table, not to the terminal
+        for rec in records:
+            _analyse_record(rec, analyze, options, buffers, counts)
+    counts["records"] = len(records)
+    return ChunkResult(chunk, {n: b.to_arrow() for n, b in buffers.items()}, dict(counts))
+
+
+def _analyse_record(rec: Record, analyze, options: AnalysisOptions, buffers, counts) -> None:
+    key = (rec.mol_id, rec.input_file, rec.input_row)
+    raw = rec.raw if rec.raw else truncate_raw(rec.text)
+
+    def error(reason: str, stage: str) -> None:
+        buffers["errors"].append(key, {"reason": reason, "raw": raw, "stage": stage})
+        counts["errors"] += 1
+        counts[f"errors_{stage}"] += 1
+
+    if rec.kind == "error":
+        error(rec.reason, rec.stage)
+        return
+    try:
+        with time_guard(options.record_timeout):
+            target = rec.text if rec.kind == "smiles" else mol_from_molblock(rec.text)
+            result = analyze(
+                target,
+                temperature=options.temperature,
+                medium=options.medium,
+                max_heavy_atoms=options.max_heavy_atoms,
+                max_stereo_assignments=options.max_stereo_assignments,
+            )
+            rows = _result_rows(result)
+    except InputError as exc:
+        stage = exc.stage if exc.stage in ("read", "parse", "analyse") else "analyse"
+        error(exc.reason, stage)
+        return
+    except RecordTimeout:
+        counts["timeouts"] += 1
+        error(
+            f"analysis took longer than {options.record_timeout:g} s and was stopped "
+            "(raise --record-timeout to allow more)",
+            "analyse",
+        )
+        return
+    except MemoryError:
+        error("analysis ran out of memory on this record", "analyse")
+        return
+    except RecursionError:
+        error("the molecule is too deeply nested to analyse", "analyse")
+        return
+    except Exception as exc:  # an engine bug must not end the run; it is counted
+        counts["internal_errors"] += 1
+        error(
+            f"internal error while analysing this record ({type(exc).__name__}: {exc}); "
+            "please report it with the raw record",
+            "analyse",
+        )
+        return
+    mol_row, ring_rows, sub_rows = rows
+    buffers["molecules"].append(key, mol_row)
+    for r in ring_rows:
+        buffers["rings"].append(key, r)
+    for s in sub_rows:
+        buffers["substituents"].append(key, s)
+    counts["molecules"] += 1
+    counts["rings"] += len(ring_rows)
+    counts["substituents"] += len(sub_rows)
+    if mol_row.get("n_sat6_rings"):
+        counts["molecules_with_rings"] += 1
+    if mol_row.get("locked_scaffold"):
+        counts["locked_scaffolds"] += 1
+
+
+def _result_rows(result) -> tuple[dict, list[dict], list[dict]]:
+    mol_row = dict(result.molecule_row())
+    mol_row["smiles"] = result.smiles
+    mol_row["n_heavy_atoms"] = result.n_heavy_atoms
+    ring_rows, sub_rows = [], []
+    for ring in result.rings:
+        ring_rows.append(ring.to_dict())
+        for sub in ring.substituents:
+            sub_rows.append(sub.to_dict())
+    return mol_row, ring_rows, sub_rows
