@@ -86,7 +86,7 @@ def mol_from_molblock(text: str):
         problems = Chem.DetectChemistryProblems(loose)
     if problems:
         p = problems[0]
-        kind = p.GetProblemType()
+        kind = p.GetType()
         if kind == "AtomValenceException":
             idx = p.GetAtomIdx()
             sym = loose.GetAtomWithIdx(idx).GetSymbol()
@@ -115,14 +115,12 @@ def analyse_chunk(
     analyzer: Callable | None = None,
 ) -> ChunkResult:
     """Analyse the records of one chunk, in order; never raises for a bad record."""
-    from rdkit import rdBase
-
     analyze = analyzer or default_analyzer()
     buffers = {name: TableBuffer(name) for name in TABLES}
     counts: Counter = Counter()
-    with rdBase.BlockLogs():  # reasons go to the errors table, not to the terminal
-        for rec in records:
-            _analyse_record(rec, analyze, options, buffers, counts)
+    # No log blocking here: the engine reads RDKit's messages to word its reasons.
+    for rec in records:
+        _analyse_record(rec, analyze, options, buffers, counts)
     counts["records"] = len(records)
     return ChunkResult(chunk, {n: b.to_arrow() for n, b in buffers.items()}, dict(counts))
 
