@@ -103,6 +103,15 @@ def _check_parameters(p: dict) -> dict:
     return p
 
 
+def auto_chunk_size(n_records: int, jobs: int) -> int:
+    """Default chunk size: about four chunks per worker, between 10 and 1000 records.
+
+    Small libraries still keep every worker busy; large ones get chunks big enough
+    that part files and manifest updates stay few.
+    """
+    return max(10, min(DEFAULTS["chunk_size"], -(-n_records // (4 * jobs))))
+
+
 def _default_jobs() -> int:
     try:
         return len(os.sched_getaffinity(0))
@@ -503,6 +512,7 @@ def annotate(
                                    params["id_column"], spools)
         specs = [s for s, _ in resolved]
         infos = [i for _, i in resolved]
+        total: int | None = None  # records expected (an upper estimate)
         if manifest is not None:
             _check_same_inputs(infos, manifest)
             finished = int(manifest["finished_chunks"])
@@ -513,6 +523,9 @@ def annotate(
         else:
             finished = 0
             counts = dict.fromkeys(COUNT_KEYS, 0)
+            total = sum(estimate_records(s) or 0 for s in specs)
+            if given["chunk_size"] is None:
+                params["chunk_size"] = auto_chunk_size(total, jobs)
             manifest = {
                 "tool": "libconf annotate",
                 "manifest_format": MANIFEST_FORMAT,
@@ -536,13 +549,9 @@ def annotate(
             max_stereo_assignments=params["max_stereo_assignments"],
             record_timeout=params["record_timeout"] or None,
         )
-        total = None
-        if progress:
-            try:
-                total = sum(estimate_records(s) or 0 for s in specs)
-            except FatalError:
-                total = None
-        bar = _progress_bar(progress, total)
+        if progress and total is None:
+            total = sum(estimate_records(s) or 0 for s in specs)
+        bar = _progress_bar(progress, total if progress else None)
 
         def todo() -> Iterator[tuple[int, list[Record]]]:
             for chunk, records in _chunks(specs, params["chunk_size"]):

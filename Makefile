@@ -1,0 +1,30 @@
+# `make test` and `make demo` bootstrap .venv from nothing (Python 3.11+, pip, make).
+PYTHON ?= python3
+VENV   := .venv
+BIN    := $(VENV)/bin
+STAMP  := $(VENV)/.installed-stamp
+DEMO_OUT ?= demo-run
+
+.PHONY: test demo lint bench clean
+
+$(STAMP): pyproject.toml requirements-lock.txt
+	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -c requirements-lock.txt -e '.[dev]'
+	touch $(STAMP)
+
+test: $(STAMP)
+	$(BIN)/python -m pytest -q tests
+
+demo: $(STAMP)
+	$(BIN)/python datasets/demo/run_demo.py $(DEMO_OUT)
+
+lint: $(STAMP)
+	$(BIN)/python -m ruff check libconf tests benchmarks
+	$(BIN)/python -m ruff format --check libconf tests benchmarks
+
+bench: $(STAMP)
+	$(BIN)/python benchmarks/bench_analyze.py
+
+clean:
+	rm -rf $(VENV) $(DEMO_OUT) .pytest_cache

@@ -1,0 +1,285 @@
+"""Chair energies from additive increments.
+
+Each rule is a small function named after the chemistry it encodes:
+`context_a_value` (A-value of a group in its ring position, with the
+heteroatom context, the anomeric effect and allylic 1,3-strain next to a planar
+nitrogen), `syn_axial_energy`, `gauche_energy`, `geminal_correction`.
+`chair_energies` adds them up for both chairs of one face assignment.
+
+Energies are G(axial) - G(equatorial) style increments in kJ/mol; a chair's
+energy is measured from a hypothetical strain-free chair.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from dataclasses import dataclass, field
+
+from rdkit import Chem
+
+from ..parameters import Parameters
+from .rings import Ring, planar_nitrogen_kind, _is_acceptor
+from .substituents import HALOGENS, Substituent
+
+R_KJ = 8.314462618e-3  # kJ mol-1 K-1
+RELATION = {0: "self", 1: "alpha", 2: "beta", 3: "gamma"}
+
+
+def ring_distance(i: int, j: int) -> int:
+    d = abs(i - j) % 6
+    return min(d, 6 - d)
+
+
+@dataclass
+class Site:
+    """A substituent prepared for the energy sums."""
+
+    sub: Substituent
+    a: float  # effective A-value (kJ/mol): G(axial) - G(equatorial)
+    u: float  # its uncertainty
+    source: str  # table | model
+    ref: str  # literature source of the value
+    name: str
+    notes: list[str] = field(default_factory=list)
+    constrained: bool = False  # bond held by a fusion / bridge: outside the sums
+
+    @property
+    def k(self) -> int:
+        return self.sub.ring_index
+
+
+def _exo_nitrogen_kind(mol: Chem.Mol, n_atom: Chem.Atom, ring_set: set[int]) -> str | None:
+    for nb in n_atom.GetNeighbors():
+        if nb.GetIdx() in ring_set:
+            continue
+        kind = _is_acceptor(nb, n_atom.GetIdx())
+        if kind:
+            return kind
+    return None
+
+
+def anomeric_term(P: Parameters, sub: Substituent, medium: str) -> tuple[float, str] | None:
+    """Extra axial stabilisation of an electronegative group next to a ring oxygen."""
+    z = sub.first_element
+    if z == 8:
+        kind = "O"
+    elif z in HALOGENS:
+        kind = "halogen"
+    elif z == 16:
+        kind = "S"
+    elif z == 7:
+        kind = "N"
+    else:
+        return None
+    name = f"anomeric_{kind}_{medium}"
+    return P.constants[name], P.constant_sources[name]
+
+
+def context_a_value(P: Parameters, mol: Chem.Mol, ring: Ring, sub: Substituent,
+                    medium: str, temperature: float) -> Site:
+    """A-value of one substituent in its ring position (the heart of the table look-up)."""
+    k = sub.ring_index
+    locant = k + 1
+    cls = ring.ring_class
+    ring_set = set(ring.atoms)
+    allylic = _allylic_partner(P, mol, ring, k, ring_set)
+    row = None if allylic else P.a_value(sub.key, cls, locant, medium)
+    notes: list[str] = []
+    if row is not None:
+        return Site(sub, row.at(temperature), row.uncertainty_kjmol, "table", row.source,
+                    row.name, [f"tabulated for {cls} position {locant}"])
+
+    base = None if sub.partner_ring else P.base_a_value(sub.key, medium)
+    if base is not None:
+        a, u, source, ref, name = base.at(temperature), base.uncertainty_kjmol, "table", base.source, base.name
+    else:
+        like = P.group_classes.get(sub.group_class, P.group_classes["other"])
+        base = P.base_a_value(like, medium)
+        a, u = base.at(temperature), P.constants["group_model_uncertainty"]
+        source, ref = "model", f"by analogy with {base.name} ({base.source})"
+        name = "ring bond" if sub.partner_ring else sub.group_class.replace("_", " ")
+        notes.append(f"not tabulated: taken as {base.name}-like")
+
+    ring_atom = mol.GetAtomWithIdx(sub.ring_atom)
+    anomeric = None
+    if ring_atom.GetAtomicNum() == 6 and any(
+        el == "O" and ring_distance(h, k) == 1 for h, el in ring.hetero
+    ):
+        anomeric = anomeric_term(P, sub, medium)
+
+    factor = 1.0
+    for h, el in ring.hetero:
+        rel = RELATION[ring_distance(h, k)]
+        if anomeric is not None and el == "O" and rel == "alpha":
+            continue
+        if allylic and el == "N" and rel == "alpha":
+            continue
+        f = P.context_factors.get((el, rel))
+        if f is not None:
+            factor *= f
+    if factor != 1.0:
+        a *= factor
+        u = math.hypot(u * factor, 0.25 * abs(a))
+        notes.append(f"heteroatom context x{factor:.2f}")
+    if anomeric is not None:
+        a -= anomeric[0]
+        u = math.hypot(u, 1.5)
+        notes.append(f"anomeric effect -{anomeric[0]:.1f} kJ/mol")
+        ref += f"; anomeric term: {anomeric[1]}"
+
+    if allylic:
+        kind = allylic
+        strain = P.constants.get(f"allylic_strain_{kind}", P.constants["allylic_strain_other"])
+        a -= strain
+        u = math.hypot(u, 3.0)
+        notes.append(f"allylic 1,3-strain with the N-{kind} group -{strain:.1f} kJ/mol")
+        ref += f"; allylic strain: {P.constant_sources.get(f'allylic_strain_{kind}', '')}"
+    return Site(sub, a, u, source, ref, name, notes)
+
+
+def _allylic_partner(P: Parameters, mol: Chem.Mol, ring: Ring, k: int, ring_set: set[int]) -> str | None:
+    """Allylic 1,3-strain: the kind of planar N (acyl, sulfonyl, nitroso, aryl) next to
+    ring index k whose exocyclic group pushes a substituent at k axial."""
+    for d in (-1, 1):
+        j = (k + d) % 6
+        if ring.planar_kinds.get(j) != "planar_nitrogen":
+            continue
+        n_atom = mol.GetAtomWithIdx(ring.atoms[j])
+        if n_atom.GetAtomicNum() == 7 and planar_nitrogen_kind(mol, n_atom):
+            kind = _exo_nitrogen_kind(mol, n_atom, ring_set)
+            if kind:
+                return kind
+    return None
+
+
+def _pair_row(P: Parameters, kind: str, s: Site, t: Site, ring: Ring, medium: str):
+    pos = ",".join(str(x) for x in sorted((s.k + 1, t.k + 1)))
+    return P.pair(kind, s.sub.key, t.sub.key, ring.ring_class, pos, medium)
+
+
+def syn_axial_energy(P: Parameters, s: Site, t: Site, ring: Ring, medium: str) -> tuple[float, str]:
+    """Energy of a syn-1,3-diaxial pair beyond the two A-values."""
+    row = _pair_row(P, "syn_axial", s, t, ring, medium)
+    if row is not None:
+        return row["energy_kjmol"], row["source"]
+    if s.a <= 0 or t.a <= 0:
+        return 0.0, ""
+    scale = P.constants["syn_axial_scale"]
+    return scale * math.sqrt(s.a * t.a), P.constant_sources["syn_axial_scale"]
+
+
+def gauche_energy(P: Parameters, s: Site, t: Site, ring: Ring, medium: str) -> tuple[float, str]:
+    """Vicinal gauche interaction (present in ee and ae, absent in aa)."""
+    row = _pair_row(P, "gauche", s, t, ring, medium)
+    if row is not None:
+        return row["energy_kjmol"], row["source"]
+    if s.a <= 0 or t.a <= 0:
+        return 0.0, ""
+    scale = P.constants["gauche_scale"]
+    return scale * math.sqrt(s.a * t.a), P.constant_sources["gauche_scale"]
+
+
+def geminal_correction(P: Parameters, ax: Site, eq: Site, ring: Ring, medium: str) -> tuple[float, str]:
+    """Non-additivity of a geminal pair (1-methyl-1-phenyl prefers the axial phenyl)."""
+    row = P.pair("geminal", ax.sub.key, eq.sub.key, ring.ring_class, "", medium)
+    if row is None:
+        return 0.0, ""
+    return row["energy_kjmol"] - (ax.a - eq.a), row["source"]
+
+
+@dataclass
+class PairTerm:
+    kind: str
+    i: int
+    j: int
+    energy: float
+    source: str
+
+
+def pair_terms(P: Parameters, sites: list[Site], ring: Ring, medium: str) -> list[PairTerm]:
+    """All pairwise corrections that could apply between the ring's substituents."""
+    out = []
+    for i, j in itertools.combinations(range(len(sites)), 2):
+        s, t = sites[i], sites[j]
+        if s.constrained or t.constrained:
+            continue
+        if s.sub.partner_ring and t.sub.partner_ring and s.sub.piece == t.sub.piece:
+            continue
+        d = ring_distance(s.k, t.k)
+        if d == 0:
+            for ax, eq, a, b in ((s, t, i, j), (t, s, j, i)):
+                e, src = geminal_correction(P, ax, eq, ring, medium)
+                if e:
+                    out.append(PairTerm("geminal", a, b, e, src))
+        elif d == 1:
+            e, src = gauche_energy(P, s, t, ring, medium)
+            if e:
+                out.append(PairTerm("gauche", i, j, e, src))
+        elif d == 2:
+            e, src = syn_axial_energy(P, s, t, ring, medium)
+            if e:
+                out.append(PairTerm("syn_axial", i, j, e, src))
+    return out
+
+
+def axial_in_chair(k: int, face: str, chair: int) -> bool:
+    """Chair 0 puckers even ring indices up; an axial bond points the way its atom puckers."""
+    return ((k % 2 == 0) == (face == "up")) != (chair == 1)
+
+
+@dataclass
+class ChairResult:
+    energy: float  # free energy of the chair (Boltzmann sum over N-invertomers)
+    axial_prob: list[float]  # per site: probability it is axial in this chair
+    terms: list[tuple[str, str, float, str]]  # (rule, detail, energy, source) of the best invertomer
+
+
+def chair_energy(sites: list[Site], faces: list[str | None], pairs: list[PairTerm],
+                 chair: int, rt: float) -> ChairResult:
+    """Energy of one chair for given faces; invertible N-substituents take both
+    positions (nitrogen inversion is fast) and are Boltzmann-summed."""
+    inv = [n for n, s in enumerate(sites) if faces[n] == "invertible" and not s.constrained]
+    fixed_axial = [
+        None if faces[n] in ("invertible", "planar", "unassigned", None)
+        else axial_in_chair(s.k, faces[n], chair)
+        for n, s in enumerate(sites)
+    ]
+    states = []
+    for combo in itertools.product((False, True), repeat=len(inv)):
+        axial = list(fixed_axial)
+        for n, ax in zip(inv, combo):
+            axial[n] = ax
+        g, terms = 0.0, []
+        for n, s in enumerate(sites):
+            if axial[n] and not s.constrained:
+                g += s.a
+                terms.append(("a_value", f"{s.k + 1}-{s.name} axial", s.a, s.ref))
+        for p in pairs:
+            ai, aj = axial[p.i], axial[p.j]
+            if ai is None or aj is None:
+                continue
+            if p.kind == "syn_axial" and ai and aj:
+                hit = True
+            elif p.kind == "gauche" and not (ai and aj):
+                hit = True
+            elif p.kind == "geminal" and ai and not aj:
+                hit = True
+            else:
+                hit = False
+            if hit:
+                g += p.energy
+                terms.append((p.kind, f"{sites[p.i].k + 1}-{sites[p.i].name} / "
+                              f"{sites[p.j].k + 1}-{sites[p.j].name}", p.energy, p.source))
+        states.append((g, axial, terms))
+    gmin = min(st[0] for st in states)
+    weights = [math.exp(-(st[0] - gmin) / rt) for st in states]
+    z = sum(weights)
+    energy = gmin - rt * math.log(z)
+    prob = [0.0] * len(sites)
+    for w, (_, axial, _) in zip(weights, states):
+        for n, ax in enumerate(axial):
+            if ax:
+                prob[n] += w / z
+    best = min(states, key=lambda st: st[0])
+    return ChairResult(energy, prob, best[2])

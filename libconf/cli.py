@@ -1,0 +1,90 @@
+"""Command line: `libconf explain`, `libconf annotate`."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import sys
+
+from . import __version__
+from .engine import DEFAULT_MEDIUM, DEFAULT_TEMPERATURE, MEDIA, analyze
+from .errors import InputError
+from .explain import explain_text
+
+
+def _clean(obj):
+    if isinstance(obj, float) and (math.isnan(obj) or math.isinf(obj)):
+        return None
+    if isinstance(obj, dict):
+        return {k: _clean(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_clean(v) for v in obj]
+    return obj
+
+
+def _temperature(text: str) -> float:
+    t = float(text)
+    if not 0 < t < 2000:
+        raise argparse.ArgumentTypeError("temperature is in kelvin, between 0 and 2000")
+    return t
+
+
+def _add_conditions(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--temperature", type=_temperature, default=DEFAULT_TEMPERATURE, metavar="K",
+                   help=f"temperature in kelvin (default {DEFAULT_TEMPERATURE})")
+    p.add_argument("--medium", choices=MEDIA, default=DEFAULT_MEDIUM,
+                   help=f"solvent setting for medium-dependent increments (default {DEFAULT_MEDIUM})")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="libconf",
+        description="Ring-conformation descriptors for saturated six-membered rings: chair "
+                    "preference, axial/equatorial substituents, inversion barrier, lock class. "
+                    "Estimates from published increments; not a substitute for experiment.",
+    )
+    parser.add_argument("--version", action="version", version=f"libconf {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    ex = sub.add_parser("explain", help="one molecule: a readable per-ring breakdown",
+                        description="Explain the ring conformations of one molecule.")
+    ex.add_argument("smiles", metavar="SMILES", help="the molecule (quote it in the shell)")
+    ex.add_argument("--json", action="store_true", help="JSON with the output-table field names")
+    _add_conditions(ex)
+    try:
+        from .pipeline import cli as pipeline_cli
+    except ImportError:  # pragma: no cover - the batch pipeline ships with the package
+        pipeline_cli = None
+    if pipeline_cli is not None:
+        pipeline_cli.add_annotate_parser(sub)
+    return parser
+
+
+def run_explain(args) -> int:
+    try:
+        res = analyze(args.smiles, temperature=args.temperature, medium=args.medium)
+    except InputError as exc:
+        print(f"libconf explain: {exc.reason}", file=sys.stderr)
+        return 2
+    if args.json:
+        print(json.dumps(_clean(res.to_dict()), indent=2))
+    else:
+        print(explain_text(res))
+    return 0
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if args.command == "explain":
+        return run_explain(args)
+    if args.command == "annotate":
+        from .pipeline import cli as pipeline_cli
+
+        return pipeline_cli.run_annotate(args)
+    parser.print_help()
+    return 2
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
