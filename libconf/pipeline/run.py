@@ -575,6 +575,7 @@ def annotate(
                     bar.update(result.counts["records"])
         finally:
             if bar is not None:
+                bar.total = bar.n  # the estimate counted comment and blank lines too
                 bar.close()
 
         manifest["status"] = "finished"
