@@ -261,3 +261,30 @@ def test_unreadable_input_is_fatal_not_a_crash(tmp_path):
     p.write_bytes(data[: len(data) // 2])
     with pytest.raises(FatalError, match="damaged.smi.gz"):
         annotate([p], tmp_path / "run", jobs=1)
+
+
+def test_full_disk_is_fatal_naming_the_file_and_the_run_stays_resumable(
+    curated, tmp_path, monkeypatch
+):
+    import errno
+
+    from libconf.pipeline import tables as tables_module
+
+    real_write = tables_module.pq.write_table
+    calls = {"n": 0}
+
+    def write_until_full(table, where, **kw):
+        calls["n"] += 1
+        if calls["n"] > 6:  # the first chunk's four parts and half of the second's
+            raise OSError(errno.ENOSPC, "No space left on device")
+        return real_write(table, where, **kw)
+
+    monkeypatch.setattr(tables_module.pq, "write_table", write_until_full)
+    out = tmp_path / "run"
+    with pytest.raises(FatalError, match=r"part-000001\.parquet: No space left"):
+        annotate(curated, out, jobs=1, chunk_size=4)
+    assert not list(out.glob("*/.*.tmp"))
+    monkeypatch.setattr(tables_module.pq, "write_table", real_write)
+    annotate(curated, out, jobs=1, resume=True)
+    annotate(curated, tmp_path / "reference", jobs=1, chunk_size=4)
+    assert_same_tables(out, tmp_path / "reference")

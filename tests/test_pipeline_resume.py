@@ -21,6 +21,8 @@ from libconf.pipeline.tables import TABLES, part_name
 ROOT = Path(__file__).resolve().parents[1]
 DATA = Path(__file__).parent / "data" / "pipeline"
 DEMO = ROOT / "datasets" / "demo" / "quillan_ridge_library.smi.gz"
+sys.path.insert(0, str(DATA))
+import paced_engine  # noqa: E402
 
 
 def env_with_path() -> dict:
@@ -103,3 +105,26 @@ def test_resume_without_a_manifest_on_an_empty_directory_starts_afresh(library, 
     out.mkdir()
     summary = annotate([library], out, chunk_size=100, jobs=1, resume=True)
     assert summary["records"] == 600
+
+
+def test_interrupted_run_resumes_from_another_directory_without_naming_inputs(
+    tmp_path, monkeypatch
+):
+    (tmp_path / "lab").mkdir()
+    lines = [f"C1CCC(C{'C' * (k % 7)})CC1 q{k}" for k in range(60)]
+    lines.insert(41, f"{paced_engine.INTERRUPT_SMILES} cyclohexanol")
+    (tmp_path / "lab" / "set.smi").write_text("\n".join(lines) + "\n")
+    monkeypatch.chdir(tmp_path / "lab")
+    annotate(["set.smi"], tmp_path / "reference", chunk_size=8, jobs=1)
+    with pytest.raises(KeyboardInterrupt):
+        annotate(["set.smi"], tmp_path / "run", chunk_size=8, jobs=1,
+                 analyzer=paced_engine.interrupt_on_marked)
+    manifest = json.loads((tmp_path / "run" / "manifest.json").read_text())
+    assert manifest["status"] == "running" and manifest["finished_chunks"] == 5
+    monkeypatch.chdir(tmp_path)
+    summary = annotate([], tmp_path / "run", resume=True, jobs=2)
+    assert summary["records"] == 61 and summary["resumed"]
+    got, want = tables(tmp_path / "run"), tables(tmp_path / "reference")
+    assert set(got["molecules"].input_file) == {"set.smi"}
+    for t in TABLES:
+        pd.testing.assert_frame_equal(got[t], want[t], check_exact=True, obj=t)

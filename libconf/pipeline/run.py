@@ -515,6 +515,10 @@ def annotate(
         total: int | None = None  # records expected (an upper estimate)
         if manifest is not None:
             _check_same_inputs(infos, manifest)
+            # Same files (by hash), maybe named from another working directory: keep
+            # the names the run started with, so input_file agrees across chunks.
+            for spec, info, old in zip(specs, infos, manifest["inputs"]):
+                spec.name = info["name"] = old["name"]
             finished = int(manifest["finished_chunks"])
             counts = {k: int(manifest["counts"].get(k, 0)) for k in COUNT_KEYS}
             _drop_unfinished_parts(out_dir, finished)

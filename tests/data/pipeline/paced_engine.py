@@ -32,3 +32,13 @@ def crash_on_marked(target, **options):
 def paced(target, **options):
     time.sleep(float(os.environ.get("LIBCONF_TEST_PACE_S", "0.01")))
     return real_analyze(target, **options)
+
+
+#: A record with this SMILES interrupts the run (as Ctrl-C would) before it is analysed.
+INTERRUPT_SMILES = "OC1CCCCC1"
+
+
+def interrupt_on_marked(target, **options):
+    if target == INTERRUPT_SMILES:
+        raise KeyboardInterrupt
+    return real_analyze(target, **options)
