@@ -41,8 +41,7 @@ def fetch_training_split(scratch: Path) -> Path:
     wheels = sorted(scratch.glob("molsets-*.whl"))
     if not wheels:
         subprocess.run(
-            [sys.executable, "-m", "pip", "download", "--no-deps", "molsets", "-d",
-             str(scratch)],
+            [sys.executable, "-m", "pip", "download", "--no-deps", "molsets", "-d", str(scratch)],
             check=True,
         )
         wheels = sorted(scratch.glob("molsets-*.whl"))
@@ -94,8 +93,19 @@ def _tree_rss_kb(pgid: int) -> int:
 
 
 def run_annotate(inputs: list[Path], out: Path, jobs: int) -> dict:
-    cmd = [sys.executable, "-m", "libconf.pipeline.cli", "annotate", *map(str, inputs),
-           "--out", str(out), "--overwrite", "--jobs", str(jobs), "--quiet"]
+    cmd = [
+        sys.executable,
+        "-m",
+        "libconf.pipeline.cli",
+        "annotate",
+        *map(str, inputs),
+        "--out",
+        str(out),
+        "--overwrite",
+        "--jobs",
+        str(jobs),
+        "--quiet",
+    ]
     env = dict(os.environ)
     env["PYTHONPATH"] = os.pathsep.join([str(ROOT), env.get("PYTHONPATH", "")])
     start = time.perf_counter()
@@ -118,8 +128,7 @@ def run_annotate(inputs: list[Path], out: Path, jobs: int) -> dict:
     if rc != 0:
         raise SystemExit(f"annotate exited with {rc}: {' '.join(cmd)}")
     counts = json.loads((out / "manifest.json").read_text())["counts"]
-    return {"wall_s": wall, "peak_rss_mb": peak / 1024, "counts": counts,
-            "command": " ".join(cmd[1:])}
+    return {"wall_s": wall, "peak_rss_mb": peak / 1024, "counts": counts, "command": " ".join(cmd[1:])}
 
 
 def main() -> None:
@@ -140,10 +149,8 @@ def main() -> None:
     lines = [
         f"- machine: {os.cpu_count()} cores, {platform.processor() or platform.machine()}, "
         f"Python {platform.python_version()}, RDKit {rdkit.__version__}",
-        f"- data: first {n:,} SMILES of the MOSES training split (molsets wheel, "
-        "ZINC-derived)",
-        f"- bare RDKit `MolFromSmiles` loop, 1 process: {t_rdkit:.1f} s "
-        f"({n / t_rdkit:,.0f} molecules/s)",
+        f"- data: first {n:,} SMILES of the MOSES training split (molsets wheel, ZINC-derived)",
+        f"- bare RDKit `MolFromSmiles` loop, 1 process: {t_rdkit:.1f} s ({n / t_rdkit:,.0f} molecules/s)",
     ]
     for jobs, r in runs.items():
         c = r["counts"]

@@ -42,7 +42,11 @@ def env_with_path() -> dict:
 def run_cli(*args, stdin: bytes | None = None, cwd=None) -> subprocess.CompletedProcess:
     return subprocess.run(
         [sys.executable, "-m", "libconf.pipeline.cli", "annotate", *map(str, args)],
-        input=stdin, capture_output=True, env=env_with_path(), cwd=cwd, timeout=300,
+        input=stdin,
+        capture_output=True,
+        env=env_with_path(),
+        cwd=cwd,
+        timeout=300,
     )
 
 
@@ -66,7 +70,7 @@ def assert_accounting(out: Path, expected_rows: dict[str, int]) -> None:
         assert rows == list(range(n)), f"{name}: rows {rows}"
     assert set(keys.input_file) == set(expected_rows)
     for table in ("molecules", "errors"):
-        order = list(zip(t[table].input_file.map(list(expected_rows).index), t[table].input_row))
+        order = list(zip(t[table].input_file.map(list(expected_rows).index), t[table].input_row, strict=True))
         assert order == sorted(order), f"{table} not in input order"
 
 
@@ -85,10 +89,10 @@ def curated(tmp_path) -> list[Path]:
 def test_every_record_gives_one_molecule_or_error_row(curated, tmp_path):
     out = tmp_path / "run"
     summary = annotate(curated, out, jobs=2, chunk_size=2)
-    names = {str(p): n for p, (n, _) in zip(curated, EXPECTED.values())}
+    names = {str(p): n for p, (n, _) in zip(curated, EXPECTED.values(), strict=True)}
     assert_accounting(out, names)
     t = tables(out)
-    for p, (n, stages) in zip(curated, EXPECTED.values()):
+    for p, (_, stages) in zip(curated, EXPECTED.values(), strict=True):
         errs = t["errors"][t["errors"].input_file == str(p)]
         assert errs.stage.value_counts().to_dict() == stages, p.name
     assert summary["records"] == sum(names.values()) == summary["molecules"] + summary["errors"]
@@ -97,7 +101,8 @@ def test_every_record_gives_one_molecule_or_error_row(curated, tmp_path):
     assert manifest["status"] == "finished"
     assert manifest["counts"]["records"] == summary["records"]
     assert [i["sha256"] for i in manifest["inputs"]][0] == __import__("hashlib").sha256(
-        curated[0].read_bytes()).hexdigest()
+        curated[0].read_bytes()
+    ).hexdigest()
 
 
 def test_error_reasons_name_the_problem(curated, tmp_path):
@@ -215,8 +220,9 @@ def test_a_slow_record_becomes_an_error_row_and_the_run_goes_on(tmp_path):
     src.write_text(f"C1CCCCC1 fast-1\n{paced_engine.SLOW_SMILES} slow\nC1CCOCC1 fast-2\n")
     for jobs in (1, 2):
         out = tmp_path / f"run{jobs}"
-        summary = annotate([src], out, jobs=jobs, chunk_size=1, record_timeout=0.5,
-                           analyzer=paced_engine.slow_on_marked)
+        summary = annotate(
+            [src], out, jobs=jobs, chunk_size=1, record_timeout=0.5, analyzer=paced_engine.slow_on_marked
+        )
         t = tables(out)
         assert list(t["molecules"].mol_id) == ["fast-1", "fast-2"]
         err = t["errors"].iloc[0]
@@ -263,9 +269,7 @@ def test_unreadable_input_is_fatal_not_a_crash(tmp_path):
         annotate([p], tmp_path / "run", jobs=1)
 
 
-def test_full_disk_is_fatal_naming_the_file_and_the_run_stays_resumable(
-    curated, tmp_path, monkeypatch
-):
+def test_full_disk_is_fatal_naming_the_file_and_the_run_stays_resumable(curated, tmp_path, monkeypatch):
     import errno
 
     from libconf.pipeline import tables as tables_module
@@ -288,3 +292,17 @@ def test_full_disk_is_fatal_naming_the_file_and_the_run_stays_resumable(
     annotate(curated, out, jobs=1, resume=True)
     annotate(curated, tmp_path / "reference", jobs=1, chunk_size=4)
     assert_same_tables(out, tmp_path / "reference")
+
+
+def test_a_record_stuck_beyond_the_alarm_is_stopped_by_the_watchdog(tmp_path):
+    src = tmp_path / "hang.smi"
+    src.write_text(f"C1CCCCC1 a\n{paced_engine.HANG_SMILES} stuck\nC1CCOCC1 b\nC1CCNCC1 c\n")
+    out = tmp_path / "run"
+    summary = annotate(
+        [src], out, jobs=2, chunk_size=2, record_timeout=0.25, analyzer=paced_engine.hang_on_marked
+    )
+    assert_accounting(out, {str(src): 4})
+    err = tables(out)["errors"]
+    assert list(err.mol_id) == ["stuck"]
+    assert "could not be interrupted" in err.reason.iloc[0]
+    assert summary["timeouts"] == 1 and summary["molecules"] == 3

@@ -50,7 +50,13 @@ def test_smiles_file_skips_comments_blank_lines_and_header_but_numbers_records()
     assert [r.input_row for r in recs] == list(range(8))
     assert spec.skipped_lines == 5  # 2 comments, header, blank, whitespace-only
     assert [r.mol_id for r in recs] == [
-        "QR-0001", "QR-0002", "QR-0003", "QR-0004", "mixed:4", "mixed:5", "mixed:6",
+        "QR-0001",
+        "QR-0002",
+        "QR-0003",
+        "QR-0004",
+        "mixed:4",
+        "mixed:5",
+        "mixed:6",
         "beta glucose QR-0008",
     ]
     assert recs[1].text == "O[C@@H]1CCCC[C@H]1N"  # tab-separated id
@@ -78,9 +84,7 @@ def test_gzipped_file_gives_the_same_records(tmp_path):
 def test_csv_quoted_commas_multiline_fields_and_short_rows():
     spec, recs = records(DATA / "quoted.csv")
     assert spec.smiles_column == "smiles" and spec.id_column == "compound_id"
-    assert [r.mol_id for r in recs] == [
-        "QR-C001", "QR-C002", "QR-C003", "QR-C004", "QR-C005", "quoted:5"
-    ]
+    assert [r.mol_id for r in recs] == ["QR-C001", "QR-C002", "QR-C003", "QR-C004", "QR-C005", "quoted:5"]
     assert recs[0].text == "O[C@H]1CC[C@H](C(C)(C)C)CC1"
     assert recs[3].text == "C1CCNCC1"  # after a quoted field spanning two lines
     assert "over two lines" in recs[3].raw
@@ -109,7 +113,12 @@ def test_named_columns_override_detection_and_a_wrong_name_lists_the_columns(tmp
 def test_sdf_broken_molblock_and_truncated_last_entry_are_records():
     spec, recs = records(DATA / "broken.sdf")
     assert [r.mol_id for r in recs] == [
-        "QR-S001", "QR-S002", "QR-S003", "QR-S004", "QR-S006 pentavalent carbon", "QR-S005"
+        "QR-S001",
+        "QR-S002",
+        "QR-S003",
+        "QR-S004",
+        "QR-S006 pentavalent carbon",
+        "QR-S005",
     ]
     # The broken molblock is passed on (the parse stage names the problem); the
     # truncated one is caught while reading.

@@ -58,8 +58,10 @@ def library(tmp_path_factory) -> Path:
 def kill_part_way(library: Path, out: Path, at_least: int) -> None:
     proc = subprocess.Popen(
         [sys.executable, str(DATA / "paced_run.py"), str(out), str(library), "10", "2"],
-        env=env_with_path(), start_new_session=True,
-        stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+        env=env_with_path(),
+        start_new_session=True,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
     )
     deadline = time.monotonic() + 120
     try:
@@ -87,9 +89,21 @@ def test_killed_run_resumes_to_the_same_tables_as_an_uninterrupted_one(library, 
     (out / "errors" / f".{part_name(k)}.tmp").write_bytes(b"PAR1 half")
 
     res = subprocess.run(
-        [sys.executable, "-m", "libconf.pipeline.cli", "annotate", str(library),
-         "--out", str(out), "--resume", "--jobs", "2"],
-        env=env_with_path(), capture_output=True, timeout=300,
+        [
+            sys.executable,
+            "-m",
+            "libconf.pipeline.cli",
+            "annotate",
+            str(library),
+            "--out",
+            str(out),
+            "--resume",
+            "--jobs",
+            "2",
+        ],
+        env=env_with_path(),
+        capture_output=True,
+        timeout=300,
     )
     assert res.returncode == 0, res.stderr.decode()
     assert json.loads((out / "manifest.json").read_text())["status"] == "finished"
@@ -107,9 +121,7 @@ def test_resume_without_a_manifest_on_an_empty_directory_starts_afresh(library, 
     assert summary["records"] == 600
 
 
-def test_interrupted_run_resumes_from_another_directory_without_naming_inputs(
-    tmp_path, monkeypatch
-):
+def test_interrupted_run_resumes_from_another_directory_without_naming_inputs(tmp_path, monkeypatch):
     (tmp_path / "lab").mkdir()
     lines = [f"C1CCC(C{'C' * (k % 7)})CC1 q{k}" for k in range(60)]
     lines.insert(41, f"{paced_engine.INTERRUPT_SMILES} cyclohexanol")
@@ -117,8 +129,9 @@ def test_interrupted_run_resumes_from_another_directory_without_naming_inputs(
     monkeypatch.chdir(tmp_path / "lab")
     annotate(["set.smi"], tmp_path / "reference", chunk_size=8, jobs=1)
     with pytest.raises(KeyboardInterrupt):
-        annotate(["set.smi"], tmp_path / "run", chunk_size=8, jobs=1,
-                 analyzer=paced_engine.interrupt_on_marked)
+        annotate(
+            ["set.smi"], tmp_path / "run", chunk_size=8, jobs=1, analyzer=paced_engine.interrupt_on_marked
+        )
     manifest = json.loads((tmp_path / "run" / "manifest.json").read_text())
     assert manifest["status"] == "running" and manifest["finished_chunks"] == 5
     monkeypatch.chdir(tmp_path)

@@ -79,8 +79,7 @@ def _assign_stereo(mol: Chem.Mol, rng: random.Random) -> Chem.Mol:
 
 
 def _clear_one_centre(mol: Chem.Mol, rng: random.Random) -> Chem.Mol:
-    centres = [a.GetIdx() for a in mol.GetAtoms()
-               if a.GetChiralTag() != Chem.ChiralType.CHI_UNSPECIFIED]
+    centres = [a.GetIdx() for a in mol.GetAtoms() if a.GetChiralTag() != Chem.ChiralType.CHI_UNSPECIFIED]
     if len(centres) < 2:
         return mol
     mol = Chem.RWMol(mol)
@@ -140,9 +139,10 @@ def write(records: list[tuple[str, str, str]], path: str, seed: int) -> None:
             text.write(f"# {comment}\n")
         text.write(f"{smi} {ident}\n")
     data = text.getvalue().encode("utf-8")
-    with open(path, "wb") as raw, gzip.GzipFile(
-        filename="", mode="wb", fileobj=raw, mtime=0, compresslevel=9
-    ) as gz:
+    with (
+        open(path, "wb") as raw,
+        gzip.GzipFile(filename="", mode="wb", fileobj=raw, mtime=0, compresslevel=9) as gz,
+    ):
         gz.write(data)
 
 

@@ -45,42 +45,73 @@ def add_annotate_parser(subparsers) -> argparse.ArgumentParser:
             "goes on."
         ),
     )
-    p.add_argument("inputs", nargs="*", metavar="INPUT",
-                   help="SMILES (.smi/.smiles/.txt), .csv, .tsv, .sdf/.sd (each optionally "
-                        ".gz) or .parquet files; - reads SMILES from stdin. With --resume "
-                        "they may be left out.")
+    p.add_argument(
+        "inputs",
+        nargs="*",
+        metavar="INPUT",
+        help="SMILES (.smi/.smiles/.txt), .csv, .tsv, .sdf/.sd (each optionally "
+        ".gz) or .parquet files; - reads SMILES from stdin. With --resume "
+        "they may be left out.",
+    )
     p.add_argument("--out", required=True, metavar="DIR", help="output directory")
-    p.add_argument("--jobs", type=_positive_int, default=None, metavar="N",
-                   help="worker processes (default: all cores)")
-    p.add_argument("--chunk-size", type=_positive_int, default=None, metavar="N",
-                   help="records per chunk, the unit of work and of --resume "
-                        "(default: 1000)")
-    p.add_argument("--temperature", type=float, default=None, metavar="K",
-                   help="temperature in kelvin (default: 298.15)")
-    p.add_argument("--medium", choices=("nonpolar", "water"), default=None,
-                   help="solvent setting (default: water)")
-    p.add_argument("--smiles-column", default=None, metavar="NAME",
-                   help="SMILES column of CSV/TSV/Parquet inputs (default: found by name)")
-    p.add_argument("--id-column", default=None, metavar="NAME",
-                   help="id column of CSV/TSV/Parquet inputs, or SDF data field (default: "
-                        "found by name; the SDF title line)")
-    p.add_argument("--record-timeout", type=_seconds, default=None, metavar="SECONDS",
-                   help="stop analysing one record after this long and record it as an "
-                        "error (default: 10; 0 = no limit)")
-    p.add_argument("--max-heavy-atoms", type=_positive_int, default=None, metavar="N",
-                   help="records with more heavy atoms become errors (default: 500)")
-    p.add_argument("--max-stereo-assignments", type=_positive_int, default=None, metavar="N",
-                   help="cap on stereo assignments tried for unspecified centres "
-                        "(default: 64)")
+    p.add_argument(
+        "--jobs", type=_positive_int, default=None, metavar="N", help="worker processes (default: all cores)"
+    )
+    p.add_argument(
+        "--chunk-size",
+        type=_positive_int,
+        default=None,
+        metavar="N",
+        help="records per chunk, the unit of work and of --resume (default: 1000)",
+    )
+    p.add_argument(
+        "--temperature", type=float, default=None, metavar="K", help="temperature in kelvin (default: 298.15)"
+    )
+    p.add_argument(
+        "--medium", choices=("nonpolar", "water"), default=None, help="solvent setting (default: water)"
+    )
+    p.add_argument(
+        "--smiles-column",
+        default=None,
+        metavar="NAME",
+        help="SMILES column of CSV/TSV/Parquet inputs (default: found by name)",
+    )
+    p.add_argument(
+        "--id-column",
+        default=None,
+        metavar="NAME",
+        help="id column of CSV/TSV/Parquet inputs, or SDF data field (default: "
+        "found by name; the SDF title line)",
+    )
+    p.add_argument(
+        "--record-timeout",
+        type=_seconds,
+        default=None,
+        metavar="SECONDS",
+        help="stop analysing one record after this long and record it as an "
+        "error (default: 10; 0 = no limit)",
+    )
+    p.add_argument(
+        "--max-heavy-atoms",
+        type=_positive_int,
+        default=None,
+        metavar="N",
+        help="records with more heavy atoms become errors (default: 500)",
+    )
+    p.add_argument(
+        "--max-stereo-assignments",
+        type=_positive_int,
+        default=None,
+        metavar="N",
+        help="cap on stereo assignments tried for unspecified centres (default: 64)",
+    )
     mode = p.add_mutually_exclusive_group()
-    mode.add_argument("--resume", action="store_true",
-                      help="continue an interrupted run in DIR")
-    mode.add_argument("--overwrite", action="store_true",
-                      help="replace the results of an earlier run in DIR")
-    p.add_argument("--scheduler", default=None, metavar="ADDRESS",
-                   help="run on a Dask cluster (not available yet)")
-    p.add_argument("--quiet", action="store_true",
-                   help="no progress bar and no summary line")
+    mode.add_argument("--resume", action="store_true", help="continue an interrupted run in DIR")
+    mode.add_argument("--overwrite", action="store_true", help="replace the results of an earlier run in DIR")
+    p.add_argument(
+        "--scheduler", default=None, metavar="ADDRESS", help="run on a Dask cluster (not available yet)"
+    )
+    p.add_argument("--quiet", action="store_true", help="no progress bar and no summary line")
     p.set_defaults(command_func=run_annotate)
     return p
 
@@ -104,12 +135,19 @@ def run_annotate(args: argparse.Namespace) -> int:
         return _fail("give at least one INPUT file (or - for SMILES on stdin)", EXIT_USAGE)
     try:
         summary = annotate(
-            args.inputs, args.out,
-            jobs=args.jobs, chunk_size=args.chunk_size, temperature=args.temperature,
-            medium=args.medium, smiles_column=args.smiles_column, id_column=args.id_column,
-            record_timeout=args.record_timeout, max_heavy_atoms=args.max_heavy_atoms,
+            args.inputs,
+            args.out,
+            jobs=args.jobs,
+            chunk_size=args.chunk_size,
+            temperature=args.temperature,
+            medium=args.medium,
+            smiles_column=args.smiles_column,
+            id_column=args.id_column,
+            record_timeout=args.record_timeout,
+            max_heavy_atoms=args.max_heavy_atoms,
             max_stereo_assignments=args.max_stereo_assignments,
-            resume=args.resume, overwrite=args.overwrite,
+            resume=args.resume,
+            overwrite=args.overwrite,
             progress=not args.quiet and sys.stderr.isatty(),
         )
     except UsageError as exc:

@@ -38,18 +38,33 @@ RAW_LIMIT_BYTES = 10 * 1024
 SDF_RECORD_LIMIT_BYTES = 32 * 1024 * 1024
 
 FORMATS = {
-    ".smi": "smiles", ".smiles": "smiles", ".txt": "smiles",
-    ".csv": "csv", ".tsv": "tsv",
-    ".sdf": "sdf", ".sd": "sdf",
-    ".parquet": "parquet", ".pq": "parquet",
+    ".smi": "smiles",
+    ".smiles": "smiles",
+    ".txt": "smiles",
+    ".csv": "csv",
+    ".tsv": "tsv",
+    ".sdf": "sdf",
+    ".sd": "sdf",
+    ".parquet": "parquet",
+    ".pq": "parquet",
 }
 
 #: Header names taken as the SMILES / id column when none is given (case-insensitive),
 #: best first.
 SMILES_HEADERS = ("smiles", "canonical_smiles", "isomeric_smiles", "smi", "mol_smiles")
 ID_HEADERS = (
-    "mol_id", "id", "compound_id", "molecule_id", "name", "title", "identifier",
-    "compound", "molecule", "cid", "zinc_id", "chembl_id",
+    "mol_id",
+    "id",
+    "compound_id",
+    "molecule_id",
+    "name",
+    "title",
+    "identifier",
+    "compound",
+    "molecule",
+    "cid",
+    "zinc_id",
+    "chembl_id",
 )
 
 
@@ -162,8 +177,11 @@ def _lines(spec: InputSpec, fh: BinaryIO) -> Iterator[tuple[int, bytes]]:
 def read_records(spec: InputSpec) -> Iterator[Record]:
     """Stream the records of one input (see the module docstring for what counts)."""
     readers = {
-        "smiles": _read_smiles, "csv": _read_delimited, "tsv": _read_delimited,
-        "sdf": _read_sdf, "parquet": _read_parquet,
+        "smiles": _read_smiles,
+        "csv": _read_delimited,
+        "tsv": _read_delimited,
+        "sdf": _read_sdf,
+        "parquet": _read_parquet,
     }
     spec.skipped_lines = 0
     spec.records = 0
@@ -181,6 +199,7 @@ def _error(spec: InputSpec, row: int, mol_id: str, raw: str, reason: str) -> Rec
 
 
 # --- SMILES files -----------------------------------------------------------------------
+
 
 def _read_smiles(spec: InputSpec) -> Iterator[Record]:
     row = 0
@@ -204,13 +223,18 @@ def _read_smiles(spec: InputSpec) -> Iterator[Record]:
                 yield _error(spec, row, _default_id(spec, row), text, bad)
             else:
                 yield Record(
-                    spec.input_file, row, mol_id or _default_id(spec, row), "smiles",
-                    parts[0], truncate_raw(text),
+                    spec.input_file,
+                    row,
+                    mol_id or _default_id(spec, row),
+                    "smiles",
+                    parts[0],
+                    truncate_raw(text),
                 )
             row += 1
 
 
 # --- CSV / TSV --------------------------------------------------------------------------
+
 
 class _LineFeed:
     """Decoded lines for csv.reader, remembering the raw text and bad bytes of a row."""
@@ -240,8 +264,12 @@ class _LineFeed:
 
 
 def _pick_column(
-    header: list[str], wanted: str | None, candidates: Iterable[str], what: str,
-    spec: InputSpec, option: str,
+    header: list[str],
+    wanted: str | None,
+    candidates: Iterable[str],
+    what: str,
+    spec: InputSpec,
+    option: str,
 ) -> int | None:
     names = [h.strip() for h in header]
     lower = [h.lower() for h in names]
@@ -323,7 +351,10 @@ def _read_delimited(spec: InputSpec) -> Iterator[Record]:
             except csv.Error as exc:
                 raw, bad = feed.take()
                 yield _error(
-                    spec, row, _default_id(spec, row), raw,
+                    spec,
+                    row,
+                    _default_id(spec, row),
+                    raw,
                     f"row could not be split into columns ({exc})",
                 )
                 row += 1
@@ -347,7 +378,10 @@ def _read_delimited(spec: InputSpec) -> Iterator[Record]:
                 yield _error(spec, row, mol_id, raw, bad)
             elif s_idx >= len(fields):
                 yield _error(
-                    spec, row, mol_id, raw,
+                    spec,
+                    row,
+                    mol_id,
+                    raw,
                     f"row has {len(fields)} columns, so no value in the SMILES column "
                     f"{header[s_idx]!r} (column {s_idx + 1})",
                 )
@@ -355,7 +389,11 @@ def _read_delimited(spec: InputSpec) -> Iterator[Record]:
                 yield _error(spec, row, mol_id, raw, f"empty SMILES in column {header[s_idx]!r}")
             else:
                 yield Record(
-                    spec.input_file, row, mol_id, "smiles", fields[s_idx].strip(),
+                    spec.input_file,
+                    row,
+                    mol_id,
+                    "smiles",
+                    fields[s_idx].strip(),
                     truncate_raw(raw),
                 )
             row += 1
@@ -374,8 +412,9 @@ def _sdf_field(lines: list[str], name: str) -> str:
     return ""
 
 
-def _sdf_record(spec: InputSpec, row: int, chunks: list[bytes], first_line: int,
-                terminated: bool, oversize: bool) -> Record:
+def _sdf_record(
+    spec: InputSpec, row: int, chunks: list[bytes], first_line: int, terminated: bool, oversize: bool
+) -> Record:
     data = b"".join(chunks)
     try:
         text = data.decode("utf-8")
@@ -395,7 +434,10 @@ def _sdf_record(spec: InputSpec, row: int, chunks: list[bytes], first_line: int,
         mol_id = title or _default_id(spec, row)
     if oversize:
         return _error(
-            spec, row, mol_id, text,
+            spec,
+            row,
+            mol_id,
+            text,
             f"SDF entry starting on line {first_line} is larger than "
             f"{SDF_RECORD_LIMIT_BYTES // (1024 * 1024)} MB (a missing $$$$ separator?)",
         )
@@ -404,7 +446,10 @@ def _sdf_record(spec: InputSpec, row: int, chunks: list[bytes], first_line: int,
     if not any(line.startswith("M  END") for line in lines):
         where = "the file ends" if not terminated else "its $$$$ separator"
         return _error(
-            spec, row, mol_id, text,
+            spec,
+            row,
+            mol_id,
+            text,
             f"SDF entry starting on line {first_line} has no 'M  END' line before {where}"
             + ("; the file looks truncated" if not terminated else ""),
         )
@@ -440,6 +485,7 @@ def _read_sdf(spec: InputSpec) -> Iterator[Record]:
 
 # --- Parquet ----------------------------------------------------------------------------
 
+
 def _parquet_file(spec: InputSpec):
     import pyarrow.parquet as pq
 
@@ -463,20 +509,24 @@ def _read_parquet(spec: InputSpec) -> Iterator[Record]:
         for batch in pf.iter_batches(batch_size=4096, columns=columns):
             smiles = batch.column(0).to_pylist()
             ids = batch.column(1).to_pylist() if spec.id_column else [None] * len(smiles)
-            for smi, ident in zip(smiles, ids):
+            for smi, ident in zip(smiles, ids, strict=True):
                 mol_id = "" if ident is None else str(ident).strip()
                 mol_id = mol_id or _default_id(spec, row)
                 raw = f"{smi}" + (f" {ident}" if ident is not None else "")
                 if smi is None or not str(smi).strip():
-                    yield _error(spec, row, mol_id, raw,
-                                 f"no SMILES in column {spec.smiles_column!r} (empty or null)")
+                    yield _error(
+                        spec, row, mol_id, raw, f"no SMILES in column {spec.smiles_column!r} (empty or null)"
+                    )
                 elif not isinstance(smi, str):
-                    yield _error(spec, row, mol_id, raw,
-                                 f"column {spec.smiles_column!r} holds {type(smi).__name__} "
-                                 "values, not SMILES text")
+                    yield _error(
+                        spec,
+                        row,
+                        mol_id,
+                        raw,
+                        f"column {spec.smiles_column!r} holds {type(smi).__name__} values, not SMILES text",
+                    )
                 else:
-                    yield Record(spec.input_file, row, mol_id, "smiles", smi.strip(),
-                                 truncate_raw(raw))
+                    yield Record(spec.input_file, row, mol_id, "smiles", smi.strip(), truncate_raw(raw))
                 row += 1
     except OSError as exc:
         raise _read_error(spec, exc) from exc
@@ -504,6 +554,11 @@ def estimate_records(spec: InputSpec) -> int | None:
 
 
 __all__ = [
-    "InputSpec", "Record", "detect_format", "estimate_records", "probe_columns",
-    "read_records", "truncate_raw",
+    "InputSpec",
+    "Record",
+    "detect_format",
+    "estimate_records",
+    "probe_columns",
+    "read_records",
+    "truncate_raw",
 ]

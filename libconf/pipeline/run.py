@@ -27,10 +27,16 @@ import pyarrow as pa
 
 from libconf.pipeline.failures import FatalError, UsageError
 from libconf.pipeline.readers import (
-    InputSpec, Record, detect_format, estimate_records, probe_columns, read_records,
+    InputSpec,
+    Record,
+    detect_format,
+    estimate_records,
+    probe_columns,
+    read_records,
+    truncate_raw,
 )
 from libconf.pipeline.tables import TABLES, fsync_dir, part_name, write_part
-from libconf.pipeline.work import AnalysisOptions, ChunkResult, analyse_chunk
+from libconf.pipeline.work import HUNG_EXIT_STATUS, AnalysisOptions, ChunkResult, analyse_chunk, hard_limit
 
 MANIFEST = "manifest.json"
 MANIFEST_FORMAT = 1
@@ -49,21 +55,25 @@ DEFAULTS: dict[str, Any] = {
 }
 
 COUNT_KEYS = (
-    "records", "molecules", "molecules_with_rings", "locked_scaffolds", "rings",
-    "substituents", "errors", "errors_read", "errors_parse", "errors_analyse",
-    "timeouts", "internal_errors",
+    "records",
+    "molecules",
+    "molecules_with_rings",
+    "locked_scaffolds",
+    "rings",
+    "substituents",
+    "errors",
+    "errors_read",
+    "errors_parse",
+    "errors_analyse",
+    "timeouts",
+    "internal_errors",
 )
 
 
 def libconf_version() -> str:
-    try:
-        from importlib.metadata import version
+    import libconf
 
-        return version("libconf")
-    except Exception:
-        import libconf
-
-        return str(getattr(libconf, "__version__", "unknown"))
+    return str(getattr(libconf, "__version__", "unknown"))
 
 
 def _versions() -> dict:
@@ -80,6 +90,7 @@ def _versions() -> dict:
 
 
 # --- options ----------------------------------------------------------------------------
+
 
 def _check_parameters(p: dict) -> dict:
     try:
@@ -121,6 +132,7 @@ def _default_jobs() -> int:
 
 # --- inputs -----------------------------------------------------------------------------
 
+
 def _file_digest(path: str) -> tuple[int, str]:
     h = hashlib.sha256()
     size = 0
@@ -140,9 +152,13 @@ def _spool_stdin(stream: BinaryIO) -> str:
     return path
 
 
-def _resolve_inputs(names: Sequence[str], stdin: BinaryIO | None,
-                    smiles_column: str | None, id_column: str | None,
-                    spools: list[str]) -> list[tuple[InputSpec, dict]]:
+def _resolve_inputs(
+    names: Sequence[str],
+    stdin: BinaryIO | None,
+    smiles_column: str | None,
+    id_column: str | None,
+    spools: list[str],
+) -> list[tuple[InputSpec, dict]]:
     if not names:
         raise UsageError("give at least one input file (or - for SMILES on stdin)")
     seen: set[str] = set()
@@ -204,6 +220,7 @@ def _chunks(specs: Iterable[InputSpec], chunk_size: int) -> Iterator[tuple[int, 
 
 
 # --- output directory -------------------------------------------------------------------
+
 
 def _write_json_atomic(path: str, data: dict) -> None:
     tmp = os.path.join(os.path.dirname(path), "." + os.path.basename(path) + ".tmp")
@@ -282,7 +299,7 @@ def _prepare_out_dir(out_dir: str, resume: bool, overwrite: bool) -> dict | None
         for t in TABLES:
             os.makedirs(os.path.join(out_dir, t), exist_ok=True)
     except OSError as exc:
-        raise FatalError(f"cannot create output directory {out_dir}: {exc.strerror or exc}")
+        raise FatalError(f"cannot create output directory {out_dir}: {exc.strerror or exc}") from exc
     return None
 
 
@@ -332,16 +349,16 @@ def _check_same_inputs(infos: list[dict], manifest: dict) -> None:
             f"cannot resume: the run was started on {len(before)} input(s), this command "
             f"gives {len(infos)}; give the same inputs in the same order (or none)"
         )
-    for old, new in zip(before, infos):
+    for old, new in zip(before, infos, strict=True):
         if old["sha256"] != new["sha256"] or old["format"] != new["format"]:
             raise UsageError(
                 f"cannot resume: input {new['name']} is not the file the run was started "
                 f"on ({old['name']}, sha256 {old['sha256'][:12]}…, now "
                 f"{new['sha256'][:12]}…); it has changed. Start again with --overwrite"
             )
-        if old.get("smiles_column") != new.get("smiles_column") or old.get(
+        if old.get("smiles_column") != new.get("smiles_column") or old.get("id_column") != new.get(
             "id_column"
-        ) != new.get("id_column"):
+        ):
             raise UsageError(
                 f"cannot resume: input {new['name']} is read with other columns than "
                 "when the run started; repeat the original --smiles-column/--id-column"
@@ -349,6 +366,7 @@ def _check_same_inputs(infos: list[dict], manifest: dict) -> None:
 
 
 # --- execution --------------------------------------------------------------------------
+
 
 class _Executor:
     """Ordered, bounded parallel map of analyse_chunk over chunks (loky processes)."""
@@ -378,9 +396,7 @@ class _Executor:
                 except StopIteration:
                     exhausted = True
                     break
-                fut = self._pool(self.jobs).submit(
-                    analyse_chunk, chunk, records, self.options, self.analyzer
-                )
+                fut = self._pool(self.jobs).submit(analyse_chunk, chunk, records, self.options, self.analyzer)
                 pending.append((chunk, records, fut))
             if not pending:
                 return
@@ -397,34 +413,42 @@ class _Executor:
             pending.popleft()
             yield result
 
-    def _run_alone(self, chunk: int, records: list[Record]) -> ChunkResult | None:
+    def _run_alone(self, chunk: int, records: list[Record]) -> ChunkResult | str:
+        """The chunk's result, or why its worker process died."""
         from joblib.externals.loky.process_executor import BrokenProcessPool
 
         try:
-            return self._pool(1).submit(
-                analyse_chunk, chunk, records, self.options, self.analyzer
-            ).result()
-        except BrokenProcessPool:
-            return None
+            return self._pool(1).submit(analyse_chunk, chunk, records, self.options, self.analyzer).result()
+        except BrokenProcessPool as exc:
+            if f"EXIT({HUNG_EXIT_STATUS})" in str(exc):
+                limit = hard_limit(self.options.record_timeout or 0.0)
+                return (
+                    f"analysis was still running after {limit:g} s and could not be "
+                    "interrupted (stuck inside native code), so its worker process was stopped"
+                )
+            return (
+                "the analysis crashed its worker process on this record (a fault in native "
+                "code, or too much memory); please report it with the raw record"
+            )
 
     def _isolated(self, chunk: int, records: list[Record]) -> ChunkResult:
         result = self._run_alone(chunk, records)
-        if result is not None:
+        if not isinstance(result, str):
             return result
         parts = []
         for rec in records:
             one = self._run_alone(chunk, [rec])
-            if one is None:
-                crashed = rec._replace(
+            if isinstance(one, str):
+                failed = rec._replace(
                     kind="error",
                     text="",
-                    raw=rec.raw or rec.text[:10240],
-                    reason="the analysis crashed its worker process on this record "
-                    "(a fault in native code); please report it with the raw record",
+                    raw=rec.raw or truncate_raw(rec.text),
+                    reason=one,
                     stage="analyse",
                 )
-                one = analyse_chunk(chunk, [crashed], self.options, self.analyzer)
-                one.counts["internal_errors"] = 1
+                one = analyse_chunk(chunk, [failed], self.options, self.analyzer)
+                key = "timeouts" if "could not be interrupted" in failed.reason else "internal_errors"
+                one.counts[key] = 1
             parts.append(one)
         tables = {t: pa.concat_tables([p.tables[t] for p in parts]) for t in TABLES}
         counts: collections.Counter = collections.Counter()
@@ -438,8 +462,15 @@ def _progress_bar(enabled: bool, total: int | None):
         return None
     from tqdm import tqdm
 
-    return tqdm(total=total, unit=" records", unit_scale=True, file=sys.stderr,
-                dynamic_ncols=True, smoothing=0.1, desc="annotate")
+    return tqdm(
+        total=total,
+        unit=" records",
+        unit_scale=True,
+        file=sys.stderr,
+        dynamic_ncols=True,
+        smoothing=0.1,
+        desc="annotate",
+    )
 
 
 def annotate(
@@ -483,21 +514,26 @@ def annotate(
     if not isinstance(jobs, int) or jobs < 1:
         raise UsageError(f"--jobs must be a whole number of at least 1 (got {jobs!r})")
     given = {
-        "temperature": temperature, "medium": medium, "chunk_size": chunk_size,
-        "smiles_column": smiles_column, "id_column": id_column,
-        "record_timeout": record_timeout, "max_heavy_atoms": max_heavy_atoms,
+        "temperature": temperature,
+        "medium": medium,
+        "chunk_size": chunk_size,
+        "smiles_column": smiles_column,
+        "id_column": id_column,
+        "record_timeout": record_timeout,
+        "max_heavy_atoms": max_heavy_atoms,
         "max_stereo_assignments": max_stereo_assignments,
     }
-    given_checked = _check_parameters({**DEFAULTS, **{k: v for k, v in given.items()
-                                                      if v is not None}})
+    given_checked = _check_parameters({**DEFAULTS, **{k: v for k, v in given.items() if v is not None}})
     given = {k: (given_checked[k] if given[k] is not None else None) for k in given}
 
     manifest = _prepare_out_dir(out_dir, resume, overwrite)
     if manifest is not None and not names:
         names = [i["path"] for i in manifest["inputs"]]
         if "-" in names:
-            raise UsageError("cannot resume a run that read stdin without it: pipe the "
-                             "same input again and give - as the input")
+            raise UsageError(
+                "cannot resume a run that read stdin without it: pipe the "
+                "same input again and give - as the input"
+            )
     params = _merge_parameters(given, manifest)
     if manifest is not None and manifest.get("versions", {}).get("libconf") != libconf_version():
         raise UsageError(
@@ -508,8 +544,7 @@ def annotate(
 
     spools: list[str] = []
     try:
-        resolved = _resolve_inputs(names, stdin, params["smiles_column"],
-                                   params["id_column"], spools)
+        resolved = _resolve_inputs(names, stdin, params["smiles_column"], params["id_column"], spools)
         specs = [s for s, _ in resolved]
         infos = [i for _, i in resolved]
         total: int | None = None  # records expected (an upper estimate)
@@ -517,7 +552,7 @@ def annotate(
             _check_same_inputs(infos, manifest)
             # Same files (by hash), maybe named from another working directory: keep
             # the names the run started with, so input_file agrees across chunks.
-            for spec, info, old in zip(specs, infos, manifest["inputs"]):
+            for spec, info, old in zip(specs, infos, manifest["inputs"], strict=True):
                 spec.name = info["name"] = old["name"]
             finished = int(manifest["finished_chunks"])
             counts = {k: int(manifest["counts"].get(k, 0)) for k in COUNT_KEYS}
@@ -548,7 +583,8 @@ def annotate(
         fsync_dir(out_dir)
 
         options = AnalysisOptions(
-            temperature=params["temperature"], medium=params["medium"],
+            temperature=params["temperature"],
+            medium=params["medium"],
             max_heavy_atoms=params["max_heavy_atoms"],
             max_stereo_assignments=params["max_stereo_assignments"],
             record_timeout=params["record_timeout"] or None,
@@ -584,8 +620,7 @@ def annotate(
 
         manifest["status"] = "finished"
         manifest["input_stats"] = [
-            {"name": s.input_file, "records": s.records, "skipped_lines": s.skipped_lines}
-            for s in specs
+            {"name": s.input_file, "records": s.records, "skipped_lines": s.skipped_lines} for s in specs
         ]
         _write_json_atomic(manifest_path, manifest)
         fsync_dir(out_dir)
@@ -615,8 +650,7 @@ def _check_accounting(result: ChunkResult) -> None:
     if n_rows != result.counts["records"]:
         # A bug, not bad input: stop rather than write tables that break the contract.
         raise RuntimeError(
-            f"chunk {result.chunk}: {result.counts['records']} records gave {n_rows} "
-            "molecule/error rows"
+            f"chunk {result.chunk}: {result.counts['records']} records gave {n_rows} molecule/error rows"
         )
 
 

@@ -27,31 +27,66 @@ _STR, _F64, _I32, _BOOL = pa.string(), pa.float64(), pa.int32(), pa.bool_()
 #: Arrow type of every result column the engine can emit.
 COLUMN_TYPES: dict[str, pa.DataType] = {
     # molecules
-    "smiles": _STR, "n_heavy_atoms": _I32,
-    "n_sat6_rings": _I32, "n_locked_rings": _I32, "locked_scaffold": _BOOL,
-    "max_dG_flip_kjmol": _F64, "min_dG_flip_kjmol": _F64,
-    "max_barrier_kjmol": _F64, "min_barrier_kjmol": _F64,
-    "axial_strain_kjmol": _F64, "n_axial_major": _F64, "n_stereo_undefined_rings": _I32,
+    "smiles": _STR,
+    "n_heavy_atoms": _I32,
+    "n_sat6_rings": _I32,
+    "n_locked_rings": _I32,
+    "locked_scaffold": _BOOL,
+    "max_dG_flip_kjmol": _F64,
+    "min_dG_flip_kjmol": _F64,
+    "max_barrier_kjmol": _F64,
+    "min_barrier_kjmol": _F64,
+    "axial_strain_kjmol": _F64,
+    "n_axial_major": _F64,
+    "n_stereo_undefined_rings": _I32,
     # rings
-    "ring_id": _I32, "ring_atoms": pa.list_(pa.int32()), "ring_class": _STR,
-    "topology": _STR, "fusion": _STR, "n_planar_ring_atoms": _I32, "stereo_status": _STR,
-    "dG_flip_kjmol": _F64, "dG_flip_min_kjmol": _F64, "dG_flip_max_kjmol": _F64,
-    "major_chair_fraction": _F64, "twist_boat_fraction": _F64, "barrier_kjmol": _F64,
-    "flip_rate_per_s": _F64, "flip_half_life_s": _F64, "lock_class": _STR,
-    "lock_reason": _STR, "value_source": _STR, "uncertainty_kjmol": _F64,
+    "ring_id": _I32,
+    "ring_atoms": pa.list_(pa.int32()),
+    "ring_class": _STR,
+    "topology": _STR,
+    "fusion": _STR,
+    "n_planar_ring_atoms": _I32,
+    "stereo_status": _STR,
+    "dG_flip_kjmol": _F64,
+    "dG_flip_min_kjmol": _F64,
+    "dG_flip_max_kjmol": _F64,
+    "major_chair_fraction": _F64,
+    "twist_boat_fraction": _F64,
+    "barrier_kjmol": _F64,
+    "flip_rate_per_s": _F64,
+    "flip_half_life_s": _F64,
+    "lock_class": _STR,
+    "lock_reason": _STR,
+    "value_source": _STR,
+    "uncertainty_kjmol": _F64,
     # substituents
-    "ring_atom": _I32, "position": _I32, "first_atom": _I32, "group": _STR, "face": _STR,
-    "axial_fraction": _F64, "a_value_kjmol": _F64, "a_value_source": _STR,
+    "ring_atom": _I32,
+    "position": _I32,
+    "first_atom": _I32,
+    "group": _STR,
+    "face": _STR,
+    "axial_fraction": _F64,
+    "a_value_kjmol": _F64,
+    "a_value_source": _STR,
     # errors
-    "reason": _STR, "raw": _STR, "stage": _STR,
+    "reason": _STR,
+    "raw": _STR,
+    "stage": _STR,
 }
 
 #: Columns of each table after the three key columns, in order.
 MOLECULE_COLUMNS = ("smiles", "n_heavy_atoms", *MoleculeResult.COLUMNS)
 RING_COLUMNS = tuple(RingResult.COLUMNS)
 SUBSTITUENT_COLUMNS = (
-    "ring_id", "ring_atom", "position", "first_atom", "group", "face",
-    "axial_fraction", "a_value_kjmol", "a_value_source",
+    "ring_id",
+    "ring_atom",
+    "position",
+    "first_atom",
+    "group",
+    "face",
+    "axial_fraction",
+    "a_value_kjmol",
+    "a_value_source",
 )
 ERROR_COLUMNS = ("reason", "raw", "stage")
 

@@ -6,8 +6,11 @@ call per molecule (``libconf.engine.analyze``), with a time guard around it.
 
 from __future__ import annotations
 
+import multiprocessing
+import os
 import signal
 import threading
+import time
 from collections import Counter
 from collections.abc import Callable, Sequence
 from contextlib import contextmanager
@@ -37,12 +40,58 @@ def _on_alarm(signum, frame):
     raise RecordTimeout()
 
 
+#: Exit status of a worker process stopped by the watchdog (see ``hard_limit``).
+HUNG_EXIT_STATUS = 75
+
+
+def hard_limit(seconds: float) -> float:
+    """When a record still runs after this long, its worker process is stopped."""
+    return 2 * seconds + 2.0
+
+
+class _Watchdog:
+    """Stops this worker process when one record overruns its hard limit.
+
+    SIGALRM (``time_guard``) interrupts Python code only: a single call stuck inside
+    RDKit's C++ code never returns to Python to see it. The parent notices the worker's
+    exit and records the record as an error. Armed only in worker processes.
+    """
+
+    def __init__(self) -> None:
+        self.deadline: float | None = None
+        self._thread: threading.Thread | None = None
+
+    def arm(self, seconds: float) -> None:
+        if self._thread is None:
+            self._thread = threading.Thread(target=self._watch, daemon=True, name="libconf-watchdog")
+            self._thread.start()
+        self.deadline = time.monotonic() + hard_limit(seconds)
+
+    def disarm(self) -> None:
+        self.deadline = None
+
+    def _watch(self) -> None:
+        while True:
+            time.sleep(0.25)
+            deadline = self.deadline
+            if deadline is not None and time.monotonic() > deadline:
+                os._exit(HUNG_EXIT_STATUS)
+
+
+_watchdog = _Watchdog()
+
+
+def _in_worker_process() -> bool:
+    return multiprocessing.parent_process() is not None
+
+
 @contextmanager
 def time_guard(seconds: float | None):
     """Interrupt the block after ``seconds`` of wall time (main thread only).
 
     SIGALRM interrupts Python code; a single long call inside RDKit's C++ code is
-    interrupted only when it returns to Python.
+    interrupted only when it returns to Python, so in a worker process a watchdog
+    thread also ends the process at ``hard_limit(seconds)``.
     """
     usable = (
         seconds
@@ -53,13 +102,18 @@ def time_guard(seconds: float | None):
     if not usable:
         yield
         return
+    watchdog = _in_worker_process()
     previous = signal.signal(signal.SIGALRM, _on_alarm)
     signal.setitimer(signal.ITIMER_REAL, seconds)
+    if watchdog:
+        _watchdog.arm(seconds)
     try:
         yield
     finally:
         signal.setitimer(signal.ITIMER_REAL, 0)
         signal.signal(signal.SIGALRM, previous)
+        if watchdog:
+            _watchdog.disarm()
 
 
 def default_analyzer() -> Callable:
@@ -79,8 +133,7 @@ def mol_from_molblock(text: str):
         loose = Chem.MolFromMolBlock(text, sanitize=False, removeHs=False)
         if loose is None:
             raise InputError(
-                "the molblock could not be read: its counts line, atom lines or bond "
-                "lines are malformed",
+                "the molblock could not be read: its counts line, atom lines or bond lines are malformed",
                 "parse",
             )
         problems = Chem.DetectChemistryProblems(loose)
@@ -91,8 +144,7 @@ def mol_from_molblock(text: str):
             idx = p.GetAtomIdx()
             sym = loose.GetAtomWithIdx(idx).GetSymbol()
             raise InputError(
-                f"valence error on {sym}{idx + 1} (atom {idx + 1} of the molblock): "
-                f"{p.Message()}",
+                f"valence error on {sym}{idx + 1} (atom {idx + 1} of the molblock): {p.Message()}",
                 "parse",
             )
         if kind == "KekulizeException":
