@@ -306,3 +306,24 @@ def test_a_record_stuck_beyond_the_alarm_is_stopped_by_the_watchdog(tmp_path):
     assert list(err.mol_id) == ["stuck"]
     assert "could not be interrupted" in err.reason.iloc[0]
     assert summary["timeouts"] == 1 and summary["molecules"] == 3
+
+
+def test_parquet_input_with_named_columns(tmp_path):
+    import pyarrow as pa
+
+    src = tmp_path / "vendor.parquet"
+    table = pa.table(
+        {
+            "catalogue": ["QR-P1", "QR-P2", None, "QR-P4"],
+            "structure": ["C[C@H]1CC[C@H](O)CC1", None, "C1CCOCC1", "C1CC(C"],
+        }
+    )
+    pq.write_table(table, src, row_group_size=2)
+    out = tmp_path / "run"
+    summary = annotate([src], out, jobs=1, smiles_column="structure", id_column="catalogue")
+    assert summary["records"] == 4 and summary["errors"] == 2
+    t = tables(out)
+    assert list(t["molecules"].mol_id) == ["QR-P1", "vendor:2"]
+    assert list(t["errors"].stage) == ["read", "parse"]
+    inputs = json.loads((out / "manifest.json").read_text())["inputs"]
+    assert (inputs[0]["smiles_column"], inputs[0]["id_column"]) == ("structure", "catalogue")
