@@ -388,7 +388,12 @@ def analyze(
     if isinstance(smiles_or_mol, Chem.Mol):
         mol = smiles_or_mol
         if any(a.GetAtomicNum() == 1 for a in mol.GetAtoms()):
-            mol = Chem.RemoveHs(mol, sanitize=False)
+            try:
+                mol = Chem.RemoveHs(mol)
+            except Exception as exc:  # RDKit sanitisation errors
+                raise InputError(f"molecule rejected by RDKit: {str(exc).splitlines()[0][:200]}") from None
+        if not mol.GetRingInfo().IsInitialized():
+            Chem.GetSymmSSSR(mol)
         smiles = None
     else:
         mol = parse_smiles(smiles_or_mol)
