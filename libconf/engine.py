@@ -392,8 +392,7 @@ def analyze(
                 mol = Chem.RemoveHs(mol)
             except Exception as exc:  # RDKit sanitisation errors
                 raise InputError(f"molecule rejected by RDKit: {str(exc).splitlines()[0][:200]}") from None
-        if not mol.GetRingInfo().IsInitialized():
-            Chem.GetSymmSSSR(mol)
+        Chem.GetSymmSSSR(mol)  # (re)perceive rings the same way as for SMILES input
         smiles = None
     else:
         mol = parse_smiles(smiles_or_mol)
