@@ -12,6 +12,7 @@ skips exactly those.
 from __future__ import annotations
 
 import collections
+import contextlib
 import hashlib
 import json
 import os
@@ -384,9 +385,17 @@ class _Executor:
         return self._get(max_workers=workers, timeout=60)
 
     def map(self, chunks: Iterator[tuple[int, list[Record]]]) -> Iterator[ChunkResult]:
+        pending: collections.deque = collections.deque()
+        try:
+            yield from self._ordered(chunks, pending)
+        finally:
+            # Interrupted or failed: drop the queued chunks; a resumed run redoes them.
+            for _, _, fut in pending:
+                fut.cancel()
+
+    def _ordered(self, chunks: Iterator[tuple[int, list[Record]]], pending: collections.deque):
         from joblib.externals.loky.process_executor import BrokenProcessPool
 
-        pending: collections.deque = collections.deque()
         source = iter(chunks)
         exhausted = False
         while True:
@@ -603,16 +612,18 @@ def annotate(
 
         executor = _Executor(jobs, options, analyzer)
         try:
-            for result in executor.map(todo()):
-                _check_accounting(result)
-                for t in TABLES:
-                    write_part(out_dir, t, result.chunk, result.tables[t])
-                for k in COUNT_KEYS:
-                    counts[k] += int(result.counts.get(k, 0))
-                manifest["finished_chunks"] = result.chunk + 1
-                _write_json_atomic(manifest_path, manifest)
-                if bar is not None:
-                    bar.update(result.counts["records"])
+            results = contextlib.closing(executor.map(todo()))
+            with results as ordered:
+                for result in ordered:
+                    _check_accounting(result)
+                    for t in TABLES:
+                        write_part(out_dir, t, result.chunk, result.tables[t])
+                    for k in COUNT_KEYS:
+                        counts[k] += int(result.counts.get(k, 0))
+                    manifest["finished_chunks"] = result.chunk + 1
+                    _write_json_atomic(manifest_path, manifest)
+                    if bar is not None:
+                        bar.update(result.counts["records"])
         finally:
             if bar is not None:
                 bar.total = bar.n  # the estimate counted comment and blank lines too
