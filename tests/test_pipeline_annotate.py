@@ -327,3 +327,15 @@ def test_parquet_input_with_named_columns(tmp_path):
     assert list(t["errors"].stage) == ["read", "parse"]
     inputs = json.loads((out / "manifest.json").read_text())["inputs"]
     assert (inputs[0]["smiles_column"], inputs[0]["id_column"]) == ("structure", "catalogue")
+
+
+def test_resume_refuses_when_the_parameter_tables_changed(curated, tmp_path):
+    out = tmp_path / "run"
+    annotate(curated[:1], out, jobs=1)
+    manifest_path = out / "manifest.json"
+    manifest = json.loads(manifest_path.read_text())
+    assert len(manifest["versions"]["parameters_sha256"]) == 64
+    manifest["versions"]["parameters_sha256"] = "0" * 64  # as if the tables were edited since
+    manifest_path.write_text(json.dumps(manifest))
+    with pytest.raises(UsageError, match="parameter tables"):
+        annotate(curated[:1], out, resume=True)

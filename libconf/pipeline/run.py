@@ -77,12 +77,27 @@ def libconf_version() -> str:
     return str(getattr(libconf, "__version__", "unknown"))
 
 
+def parameters_digest() -> str:
+    """sha256 of the engine's parameter tables: results change when they do."""
+    try:
+        from libconf import parameters
+
+        return parameters.load().digest()
+    except Exception as exc:  # reported in the manifest, not fatal here
+        return f"unavailable ({type(exc).__name__})"
+
+
+#: Versions that must match for a run to be resumed (the rest are recorded only).
+RESUME_VERSIONS = ("libconf", "parameters_sha256")
+
+
 def _versions() -> dict:
     import joblib
     import rdkit
 
     return {
         "libconf": libconf_version(),
+        "parameters_sha256": parameters_digest(),
         "python": platform.python_version(),
         "rdkit": rdkit.__version__,
         "pyarrow": pa.__version__,
@@ -343,6 +358,17 @@ def _merge_parameters(given: dict, manifest: dict | None) -> dict:
     return merged
 
 
+def _check_same_versions(manifest: dict) -> None:
+    before, now = manifest.get("versions", {}), _versions()
+    for key in RESUME_VERSIONS:
+        if before.get(key) != now[key]:
+            what = "libconf" if key == "libconf" else "libconf's parameter tables (sha256)"
+            raise UsageError(
+                f"cannot resume: the run was started with {what} {before.get(key)}, this is "
+                f"{now[key]}; its results would differ, so start again with --overwrite"
+            )
+
+
 def _check_same_inputs(infos: list[dict], manifest: dict) -> None:
     before = manifest["inputs"]
     if len(before) != len(infos):
@@ -544,12 +570,8 @@ def annotate(
                 "same input again and give - as the input"
             )
     params = _merge_parameters(given, manifest)
-    if manifest is not None and manifest.get("versions", {}).get("libconf") != libconf_version():
-        raise UsageError(
-            f"cannot resume: the run was started with libconf "
-            f"{manifest.get('versions', {}).get('libconf')}, this is {libconf_version()}; "
-            "start again with --overwrite"
-        )
+    if manifest is not None:
+        _check_same_versions(manifest)
 
     spools: list[str] = []
     try:
