@@ -6,7 +6,8 @@ Structures are assembled from ``scaffolds.csv`` (saturated six-membered ring sys
 with numbered attachment points) and ``substituents.csv``, with a fixed seed, so the
 file is the same on every run with the same RDKit. Most records have every ring
 stereocentre specified; some are left open, some half open. A handful of deliberately
-broken records (unparseable SMILES, valence errors) show what the errors table holds.
+broken records (unparseable SMILES, valence errors, one beyond the heavy-atom limit)
+show what the errors table holds.
 The output is gzip with a zero timestamp, so identical content gives identical bytes.
 """
 
@@ -41,6 +42,7 @@ BAD_RECORDS = [
     ("c1cccc1C1CCCCC1", "aromatic ring that cannot be kekulized"),
     ("C1CCXCC1", "unknown element symbol"),
     ("OC1CCC(CC1)O)C", "unbalanced parenthesis"),
+    ("C1CCC(CC1)" + "C" * 600, "a 606-atom chain, beyond the heavy-atom limit"),
 ]
 
 
