@@ -18,8 +18,10 @@ from rdkit import Chem, rdBase
 
 from . import parameters
 from .chem.barrier import LockThresholds, barrier_estimate, eyring_rate, lock_class, twist_boat_energy
-from .chem.energy import R_KJ, Site, axial_in_chair, chair_energy, context_a_value, pair_terms
-from .chem.rings import Ring, describe_ring, saturated_six_rings
+from .chem.energy import (R_KJ, Site, axial_in_chair, chair_energy, chair_terms, context_a_value,
+                          energy_inputs, pair_terms)
+from .chem.molview import MolView
+from .chem.rings import Ring, describe_ring, has_saturated_six_ring, saturated_six_rings
 from .chem.substituents import Substituent, ring_substituents
 from .errors import InputError
 from .results import Contribution, MoleculeResult, RingResult, SubstituentResult
@@ -35,17 +37,26 @@ MAX_STEREO_ASSIGNMENTS = 64
 _log_lock = threading.Lock()
 
 
+# RDKit's own error and warning log is switched off for the process: a bad record
+# comes back as an InputError with a reason, and a library run would otherwise
+# print a line per bad record. (Cheaper than blocking the log around every parse.)
+rdBase.LogToPythonStderr()
+rdBase.DisableLog("rdApp.error")
+rdBase.DisableLog("rdApp.warning")
+
+
 def _rdkit_messages(fn, *args):
     """Run an RDKit call and return (result, what RDKit logged), printing nothing."""
     with _log_lock:
-        rdBase.LogToPythonStderr()
         buf, old = io.StringIO(), sys.stderr
         sys.stderr = buf
+        rdBase.EnableLog("rdApp.error")
         try:
             out = fn(*args)
         except Exception as exc:  # RDKit raises several sanitisation exception types
             out = exc
         finally:
+            rdBase.DisableLog("rdApp.error")
             sys.stderr = old
     return out, buf.getvalue()
 
@@ -85,8 +96,7 @@ def parse_smiles(smiles: str) -> Chem.Mol:
     text = smiles.strip()
     if not text:
         raise InputError("empty molecule: the SMILES string is blank")
-    with rdBase.BlockLogs():
-        mol = Chem.MolFromSmiles(text)
+    mol = Chem.MolFromSmiles(text)
     if mol is None:
         raise _diagnose(text)
     return mol
@@ -111,10 +121,11 @@ def _site_index(sites: list[Site], partner_atom: int, k: int) -> int | None:
 class _RingModel:
     """Everything about one ring that does not depend on the face assignment."""
 
-    def __init__(self, P, mol, ring: Ring, medium: str, temperature: float, max_assign: int):
+    def __init__(self, P, view: MolView, ring: Ring, medium: str, temperature: float, max_assign: int):
         self.P, self.ring, self.medium, self.temperature = P, ring, medium, temperature
         self.rt = R_KJ * temperature
-        self.subs: list[Substituent] = ring_substituents(mol, ring)
+        mol = view.mol
+        self.subs: list[Substituent] = ring_substituents(view, ring)
         self.sites: list[Site] = [
             context_a_value(P, mol, ring, s, medium, temperature) for s in self.subs
             if s.face != "planar"
@@ -141,6 +152,7 @@ class _RingModel:
             for n in c.sites:
                 self.sites[n].constrained = True
         self.pairs = pair_terms(P, self.sites, ring, medium)
+        self.energy_inputs = energy_inputs(self.sites, self.pairs)
         gauche = sum(p.energy for p in self.pairs if p.kind == "gauche")
         self.twist_boat = twist_boat_energy(P, ring, self.sites, temperature, gauche)
         self._variables(max_assign)
@@ -233,7 +245,8 @@ def _evaluate(model: _RingModel, faces: list[str]) -> _Outcome | None:
         reasons.append(c.text)
     if boat:
         allowed = []
-    chairs = {c: chair_energy(model.sites, faces, model.pairs, c, model.rt) for c in allowed}
+    chairs = {c: chair_energy(model.sites, faces, model.pairs, c, model.rt, model.energy_inputs)
+              for c in allowed}
     return _Outcome(faces, allowed, chairs, "; ".join(dict.fromkeys(reasons)) or None,
                     boat, n_cis, fusion)
 
@@ -265,9 +278,9 @@ def _driver_text(model: _RingModel, o: _Outcome, major: int) -> str:
     return text
 
 
-def analyze_ring(P, mol, ring: Ring, ring_id: int, medium: str, temperature: float,
+def analyze_ring(P, view: MolView, ring: Ring, ring_id: int, medium: str, temperature: float,
                  max_assign: int, thresholds: LockThresholds) -> RingResult:
-    model = _RingModel(P, mol, ring, medium, temperature, max_assign)
+    model = _RingModel(P, view, ring, medium, temperature, max_assign)
     outcomes = [o for o in map(lambda f: _evaluate(model, f), model.assignments()) if o is not None]
     if not outcomes:  # every assignment impossible: report the ring as held, no chair analysis
         outcomes = [_Outcome(list(model.base_faces), [], {}, "held by the ring system", False, 0, None)]
@@ -338,7 +351,7 @@ def analyze_ring(P, mol, ring: Ring, ring_id: int, medium: str, temperature: flo
             res.major_chair_fraction = 1.0
             chair_prob = {c: 1.0, 1 - c: 0.0}
     for c, cr in best.chairs.items():
-        for rule, detail, e, src in cr.terms:
+        for rule, detail, e, src in chair_terms(model.sites, model.pairs, cr.best_axial):
             res.contributions.append(Contribution(c, rule, detail, e, src))
 
     site_of = {id(s.sub): n for n, s in enumerate(model.sites)}
@@ -407,12 +420,15 @@ def analyze(
     P = parameters.load()
     th = thresholds or LockThresholds()
     result = MoleculeResult(smiles=smiles, n_heavy_atoms=n_heavy, temperature=temperature, medium=medium)
-    rings = saturated_six_rings(mol)
+    if not has_saturated_six_ring(mol):
+        return result
+    view = MolView(mol)
+    rings = saturated_six_rings(mol, view)
     if not rings:
         return result
     all_rings = mol.GetRingInfo().AtomRings()
     for ring_id, atoms in enumerate(rings):
-        ring = describe_ring(mol, atoms, all_rings)
-        result.rings.append(analyze_ring(P, mol, ring, ring_id, medium, temperature,
+        ring = describe_ring(view, atoms, all_rings)
+        result.rings.append(analyze_ring(P, view, ring, ring_id, medium, temperature,
                                          max_stereo_assignments, th))
     return result

@@ -11,14 +11,11 @@ from __future__ import annotations
 import csv
 import hashlib
 import os
-import re
 from dataclasses import dataclass
 from functools import lru_cache
 from pathlib import Path
 
-from rdkit import Chem
-
-_LABEL = re.compile(r"\[\d+\*\]")
+from .chem.molview import group_key_from_smiles
 
 
 def parameters_dir() -> Path:
@@ -36,12 +33,8 @@ def parameters_dir() -> Path:
 
 
 def canonical_group(smiles: str) -> str:
-    """Canonical SMILES of a group written with one or more ``*`` attachments."""
-    labelled = smiles.replace("*", "[1*]")
-    mol = Chem.MolFromSmiles(labelled)
-    if mol is None:
-        raise ValueError(f"bad group SMILES in parameter table: {smiles}")
-    return _LABEL.sub("*", Chem.MolToSmiles(mol))
+    """A table group in the form the engine writes groups (see chem.molview)."""
+    return group_key_from_smiles(smiles)
 
 
 @dataclass(frozen=True)

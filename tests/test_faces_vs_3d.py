@@ -16,6 +16,7 @@ from rdkit import Chem, RDConfig
 from rdkit.Chem import AllChem
 from rdkit.Chem.EnumerateStereoisomers import EnumerateStereoisomers, StereoEnumerationOptions
 
+from libconf.chem.molview import MolView
 from libconf.chem.rings import describe_ring, saturated_six_rings
 from libconf.chem.substituents import ring_substituents
 
@@ -85,9 +86,10 @@ def test_faces_agree_with_etkdg_embeddings_of_random_stereoisomers():
             conf = mh.GetConformer()
             n_here = 0
             all_rings = iso.GetRingInfo().AtomRings()
+            view = MolView(iso)
             for atoms in saturated_six_rings(iso):
-                ring = describe_ring(iso, atoms, all_rings)
-                for s in ring_substituents(iso, ring):
+                ring = describe_ring(view, atoms, all_rings)
+                for s in ring_substituents(view, ring):
                     if s.face not in ("up", "down"):
                         continue
                     geo = _face_3d(mh, conf, ring.atoms, s.ring_index, s.first_atom)

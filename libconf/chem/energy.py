@@ -232,54 +232,92 @@ def axial_in_chair(k: int, face: str, chair: int) -> bool:
 class ChairResult:
     energy: float  # free energy of the chair (Boltzmann sum over N-invertomers)
     axial_prob: list[float]  # per site: probability it is axial in this chair
-    terms: list[tuple[str, str, float, str]]  # (rule, detail, energy, source) of the best invertomer
+    best_axial: list  # axial flags of the lowest invertomer (for the breakdown)
+
+
+_SYN, _GAUCHE, _GEMINAL = 0, 1, 2
+_KIND_CODE = {"syn_axial": _SYN, "gauche": _GAUCHE, "geminal": _GEMINAL}
+
+
+def _state_energy(a_eff: list[float], pair_codes: list[tuple], axial: list) -> float:
+    g = 0.0
+    for a, ax in zip(a_eff, axial):
+        if ax:
+            g += a
+    for code, i, j, e in pair_codes:
+        ai, aj = axial[i], axial[j]
+        if ai is None or aj is None:
+            continue
+        if code == _GAUCHE:
+            if not (ai and aj):
+                g += e
+        elif code == _SYN:
+            if ai and aj:
+                g += e
+        elif ai and not aj:
+            g += e
+    return g
+
+
+def energy_inputs(sites: list[Site], pairs: list[PairTerm]) -> tuple[list[float], list[tuple]]:
+    """Per-site A-values (0 for constrained bonds) and pair terms in the form
+    `chair_energy` loops over; computed once per ring."""
+    return ([0.0 if s.constrained else s.a for s in sites],
+            [(_KIND_CODE[p.kind], p.i, p.j, p.energy) for p in pairs])
 
 
 def chair_energy(sites: list[Site], faces: list[str | None], pairs: list[PairTerm],
-                 chair: int, rt: float) -> ChairResult:
+                 chair: int, rt: float, inputs: tuple | None = None) -> ChairResult:
     """Energy of one chair for given faces; invertible N-substituents take both
     positions (nitrogen inversion is fast) and are Boltzmann-summed."""
-    inv = [n for n, s in enumerate(sites) if faces[n] == "invertible" and not s.constrained]
-    fixed_axial = [
-        None if faces[n] in ("invertible", "planar", "unassigned", None)
-        else axial_in_chair(s.k, faces[n], chair)
-        for n, s in enumerate(sites)
-    ]
+    flip = chair == 1
+    fixed_axial: list = []
+    inv = []
+    for n, (s, f) in enumerate(zip(sites, faces)):
+        if f == "up":
+            fixed_axial.append((s.sub.ring_index % 2 == 0) != flip)
+        elif f == "down":
+            fixed_axial.append((s.sub.ring_index % 2 == 1) != flip)
+        else:
+            fixed_axial.append(None)
+            if f == "invertible" and not s.constrained:
+                inv.append(n)
+    a_eff, codes = inputs or energy_inputs(sites, pairs)
+    if not inv:
+        return ChairResult(_state_energy(a_eff, codes, fixed_axial),
+                           [1.0 if ax else 0.0 for ax in fixed_axial], fixed_axial)
     states = []
     for combo in itertools.product((False, True), repeat=len(inv)):
         axial = list(fixed_axial)
         for n, ax in zip(inv, combo):
             axial[n] = ax
-        g, terms = 0.0, []
-        for n, s in enumerate(sites):
-            if axial[n] and not s.constrained:
-                g += s.a
-                terms.append(("a_value", f"{s.k + 1}-{s.name} axial", s.a, s.ref))
-        for p in pairs:
-            ai, aj = axial[p.i], axial[p.j]
-            if ai is None or aj is None:
-                continue
-            if p.kind == "syn_axial" and ai and aj:
-                hit = True
-            elif p.kind == "gauche" and not (ai and aj):
-                hit = True
-            elif p.kind == "geminal" and ai and not aj:
-                hit = True
-            else:
-                hit = False
-            if hit:
-                g += p.energy
-                terms.append((p.kind, f"{sites[p.i].k + 1}-{sites[p.i].name} / "
-                              f"{sites[p.j].k + 1}-{sites[p.j].name}", p.energy, p.source))
-        states.append((g, axial, terms))
+        states.append((_state_energy(a_eff, codes, axial), axial))
     gmin = min(st[0] for st in states)
     weights = [math.exp(-(st[0] - gmin) / rt) for st in states]
     z = sum(weights)
-    energy = gmin - rt * math.log(z)
     prob = [0.0] * len(sites)
-    for w, (_, axial, _) in zip(weights, states):
+    for w, (_, axial) in zip(weights, states):
         for n, ax in enumerate(axial):
             if ax:
                 prob[n] += w / z
     best = min(states, key=lambda st: st[0])
-    return ChairResult(energy, prob, best[2])
+    return ChairResult(gmin - rt * math.log(z), prob, best[1])
+
+
+def chair_terms(sites: list[Site], pairs: list[PairTerm], axial: list) -> list[tuple[str, str, float, str]]:
+    """The named terms behind one chair's energy (rule, detail, energy, source)."""
+    terms = []
+    for n, s in enumerate(sites):
+        if axial[n] and not s.constrained:
+            terms.append(("a_value", f"{s.k + 1}-{s.name} axial", s.a, s.ref))
+    for p in pairs:
+        ai, aj = axial[p.i], axial[p.j]
+        if ai is None or aj is None:
+            continue
+        kind = p.kind
+        if (kind == "syn_axial" and ai and aj) or (kind == "gauche" and not (ai and aj)) or (
+            kind == "geminal" and ai and not aj
+        ):
+            terms.append((kind, f"{sites[p.i].k + 1}-{sites[p.i].name} / "
+                          f"{sites[p.j].k + 1}-{sites[p.j].name}", p.energy, p.source))
+    return terms

@@ -54,10 +54,29 @@ class Ring:
     n_alkyl_on_n: int = 0
 
 
-def saturated_six_rings(mol: Chem.Mol) -> list[tuple[int, ...]]:
+# A cheap C++ test first: most library molecules have no such ring at all.
+_SAT6 = Chem.MolFromSmarts("[!a;R]1-;@[!a;R]-;@[!a;R]-;@[!a;R]-;@[!a;R]-;@[!a;R]-;@1")
+
+
+def has_saturated_six_ring(mol: Chem.Mol) -> bool:
+    """Cheap pre-test (one substructure search in C++)."""
+    return mol.HasSubstructMatch(_SAT6)
+
+
+def saturated_six_rings(mol: Chem.Mol, view=None) -> list[tuple[int, ...]]:
     """Six-membered rings (RDKit's symmetrised SSSR) with only single, non-aromatic bonds."""
-    ri = mol.GetRingInfo()
+    if not mol.HasSubstructMatch(_SAT6):
+        return []
     out = []
+    if view is not None:
+        nbrs, arom = view.nbrs, view.arom
+        for atoms in mol.GetRingInfo().AtomRings():
+            if len(atoms) != 6 or any(arom[a] for a in atoms):
+                continue
+            if all(dict(nbrs[atoms[i]]).get(atoms[i - 1]) == 1.0 for i in range(6)):
+                out.append(atoms)
+        return out
+    ri = mol.GetRingInfo()
     for atoms, bonds in zip(ri.AtomRings(), ri.BondRings()):
         if len(atoms) != 6:
             continue
@@ -69,12 +88,10 @@ def saturated_six_rings(mol: Chem.Mol) -> list[tuple[int, ...]]:
     return out
 
 
-def _exo_double_partner(atom: Chem.Atom, ring_set: set[int]) -> Chem.Atom | None:
-    for b in atom.GetBonds():
-        if b.GetBondType() == DOUBLE:
-            other = b.GetOtherAtom(atom)
-            if other.GetIdx() not in ring_set:
-                return other
+def _exo_double_partner(view, a: int, ring_set: set[int]) -> int | None:
+    for b, order in view.nbrs[a]:
+        if order == 2.0 and b not in ring_set:
+            return b
     return None
 
 
@@ -108,84 +125,84 @@ def planar_nitrogen_kind(mol: Chem.Mol, atom: Chem.Atom) -> str | None:
     return None
 
 
-def _numbering(mol, ring, ring_set, carbonyl_idx, substituted, lactam_hetero):
+def _numbering(zs, ring, carbonyl_idx, substituted, lactam_hetero):
     """Choose start and direction: senior heteroatom (or carbonyl C) gets locant 1,
     then lowest locants for heteroatoms, the lactam carbonyl and substituents."""
-    zs = [mol.GetAtomWithIdx(a).GetAtomicNum() for a in ring]
     sen = [SENIORITY.get(z, 0 if z == 6 else 1) for z in zs]
     best_sen = max(sen)
-    if best_sen > 0:
+    if lactam_hetero is not None:
+        starts = [lactam_hetero]
+    elif best_sen > 0:
         starts = [i for i in range(6) if sen[i] == best_sen]
-        if lactam_hetero is not None:
-            starts = [lactam_hetero]
     elif carbonyl_idx:
         starts = carbonyl_idx
     else:
-        starts = list(range(6))
-    best = None
+        starts = substituted or [0]
+    hetero = [i for i in range(6) if sen[i] > 0]
+    best_key, best_order = None, None
     for s in starts:
         for d in (1, -1):
-            order = [(s + d * i) % 6 for i in range(6)]
-            loc = {ri: n for n, ri in enumerate(order)}
+            # locant of ring index i under this numbering: ((i - s) * d) % 6
             key = (
-                sorted(loc[i] for i in range(6) if sen[i] > 0),
-                tuple(-sen[i] for i in order),
-                sorted(loc[i] for i in carbonyl_idx),
-                sorted(loc[i] for i in substituted),
-                tuple(ring[i] for i in order),
+                sorted(((i - s) * d) % 6 for i in hetero),
+                [-sen[(s + d * n) % 6] for n in range(6)] if len(hetero) > 1 else 0,
+                sorted(((i - s) * d) % 6 for i in carbonyl_idx),
+                sorted(((i - s) * d) % 6 for i in substituted),
+                [ring[(s + d * n) % 6] for n in range(6)],
             )
-            if best is None or key < best[0]:
-                best = (key, order)
-    return [ring[i] for i in best[1]]
+            if best_key is None or key < best_key:
+                best_key, best_order = key, key[4]
+    return best_order
 
 
-def describe_ring(mol: Chem.Mol, ring: tuple[int, ...], all_rings) -> Ring:
+def describe_ring(view, ring: tuple[int, ...], all_rings) -> Ring:
+    mol = view.mol
+    z = view.z
     ring_set = set(ring)
     carbonyl, planar_kind, substituted = [], {}, []
+    exo_sets = []
     for i, a in enumerate(ring):
-        atom = mol.GetAtomWithIdx(a)
-        if atom.GetDegree() > 2:
+        exo = {b for b, _ in view.nbrs[a] if b not in ring_set}
+        exo_sets.append(exo)
+        if exo:
             substituted.append(i)
-        partner = _exo_double_partner(atom, ring_set)
-        if partner is not None and atom.GetAtomicNum() in (16, 15):
+        partner = _exo_double_partner(view, a, ring_set)
+        if partner is not None and z[a] in (16, 15):
             partner = None  # sulfoxide / sulfone / P=O: the ring atom stays tetrahedral
         if partner is not None:
-            if partner.GetAtomicNum() in (7, 8, 16):
+            if z[partner] in (7, 8, 16):
                 planar_kind[i] = "ring_carbonyl"
-                if atom.GetAtomicNum() == 6:
+                if z[a] == 6:
                     carbonyl.append(i)
             else:
                 planar_kind[i] = "exocyclic_alkene"
-        elif planar_nitrogen_kind(mol, atom):
+        elif z[a] == 7 and planar_nitrogen_kind(mol, mol.GetAtomWithIdx(a)):
             planar_kind[i] = "planar_nitrogen"
-    # Ring carbons sharing one exocyclic neighbour: a fused three-membered ring.
+    # Ring atoms sharing one exocyclic neighbour: a fused three-membered ring.
     for i in range(6):
         j = (i + 1) % 6
-        ni = {n.GetIdx() for n in mol.GetAtomWithIdx(ring[i]).GetNeighbors()} - ring_set
-        nj = {n.GetIdx() for n in mol.GetAtomWithIdx(ring[j]).GetNeighbors()} - ring_set
-        if ni & nj:
+        if exo_sets[i] & exo_sets[j]:
             planar_kind.setdefault(i, "flattened_pair")
             planar_kind.setdefault(j, "flattened_pair")
 
-    zs = [mol.GetAtomWithIdx(a).GetAtomicNum() for a in ring]
+    zs = [z[a] for a in ring]
     lactam_hetero = None
     for i in carbonyl:
         for j in ((i + 1) % 6, (i - 1) % 6):
             if zs[j] in (7, 8) and (lactam_hetero is None or zs[j] == 7):
                 lactam_hetero = j
-    ordered = _numbering(mol, ring, ring_set, carbonyl, substituted, lactam_hetero)
+    ordered = _numbering(zs, ring, carbonyl, substituted, lactam_hetero)
     index_of = {a: k for k, a in enumerate(ordered)}
     remap = lambda i: index_of[ring[i]]  # noqa: E731
     planar_kinds = {remap(i): kind for i, kind in planar_kind.items()}
 
-    hetero = [(k, ELEMENT.get(mol.GetAtomWithIdx(a).GetAtomicNum(), "X"))
-              for k, a in enumerate(ordered) if mol.GetAtomWithIdx(a).GetAtomicNum() != 6]
+    hetero = [(k, ELEMENT.get(z[a], "X")) for k, a in enumerate(ordered) if z[a] != 6]
     ring_class = classify(hetero, [remap(i) for i in carbonyl],
                           None if lactam_hetero is None else zs[lactam_hetero])
 
     r = Ring(atoms=ordered, ring_class=ring_class, topology="isolated",
              planar=sorted(planar_kinds), planar_kinds=planar_kinds, hetero=hetero)
-    _topology(mol, r, all_rings)
+    _topology(view, r, all_rings)
     return r
 
 
@@ -212,7 +229,7 @@ def _ring_distance(i: int, j: int) -> int:
     return min(d, 6 - d)
 
 
-def _topology(mol, r: Ring, all_rings) -> None:
+def _topology(view, r: Ring, all_rings) -> None:
     ring_set = set(r.atoms)
     index_of = {a: k for k, a in enumerate(r.atoms)}
     kinds = set()
@@ -228,8 +245,7 @@ def _topology(mol, r: Ring, all_rings) -> None:
         # End atoms: shared atoms bonded to a partner atom outside this ring.
         ends, partners = [], []
         for a in shared:
-            for nb in mol.GetAtomWithIdx(a).GetNeighbors():
-                n = nb.GetIdx()
+            for n, _ in view.nbrs[a]:
                 if n in other_set and n not in ring_set:
                     ends.append(index_of[a])
                     partners.append(n)

@@ -12,17 +12,15 @@ is on the upper face when det(p - c, n - c, s - c) < 0.
 
 from __future__ import annotations
 
-import re
 from dataclasses import dataclass
 
 from rdkit import Chem
 
+from .molview import MolView
 from .rings import Ring
 
 CW = Chem.ChiralType.CHI_TETRAHEDRAL_CW
 CCW = Chem.ChiralType.CHI_TETRAHEDRAL_CCW
-_LABEL = re.compile(r"\[(\d+)\*\]")
-_STEREO = re.compile(r"[@/\\]")
 HALOGENS = {9, 17, 35, 53}
 
 
@@ -129,66 +127,32 @@ def group_class(mol: Chem.Mol, first: Chem.Atom, ring_atom: int) -> str:
     return "other"
 
 
-def _strip_stereo(smiles: str) -> str:
-    if not _STEREO.search(smiles):
-        return smiles
-    mol = Chem.MolFromSmiles(smiles.replace("*", "[1*]"), sanitize=False)
-    if mol is None:
-        return _STEREO.sub("", smiles)
-    Chem.RemoveStereochemistry(mol)
-    return _LABEL.sub("*", Chem.MolToSmiles(mol))
-
-
-def ring_substituents(mol: Chem.Mol, ring: Ring) -> list[Substituent]:
+def ring_substituents(view: MolView, ring: Ring) -> list[Substituent]:
     """Every non-H exocyclic substituent of the ring, with its group and face."""
+    mol = view.mol
     atoms = ring.atoms
     ring_set = set(atoms)
-    exo = []  # (ring index, ring atom, first atom, bond index)
-    for k, a in enumerate(atoms):
-        atom = mol.GetAtomWithIdx(a)
-        for b in atom.GetBonds():
-            o = b.GetOtherAtomIdx(a)
-            if o not in ring_set:
-                exo.append((k, a, o, b.GetIdx()))
-    if not exo:
-        return []
-
-    # Cut every exocyclic bond once; the pieces carry a label naming the bond.
-    labels = []
-    for n, (_, a, _, bidx) in enumerate(exo):
-        begin_is_ring = mol.GetBondWithIdx(bidx).GetBeginAtomIdx() == a
-        # RDKit labels the dummy that replaces the *other* end of the bond.
-        labels.append((n + 1, 0) if begin_is_ring else (0, n + 1))
-    pieces = Chem.FragmentOnBonds(mol, [e[3] for e in exo], addDummies=True, dummyLabels=labels)
-    group_of: dict[int, tuple[str, int]] = {}
-    for p, piece in enumerate(Chem.MolToSmiles(pieces).split(".")):
-        found = [int(x) for x in _LABEL.findall(piece)]
-        if not found or 0 in found:
-            continue
-        text = _LABEL.sub("*", piece)
-        for lab in found:
-            group_of[lab - 1] = (text, p)
-
     partner_atoms = {p for br in ring.bridges for p in br.partners}
     spiro = set(ring.spiro_atoms)
     planar = set(ring.planar)
+    z = view.z
     out = []
-    for n, (k, a, o, bidx) in enumerate(exo):
+    for k, a in enumerate(atoms):
+        exo = [(o, order) for o, order in view.nbrs[a] if o not in ring_set]
+        if not exo:
+            continue
         atom = mol.GetAtomWithIdx(a)
-        first = mol.GetAtomWithIdx(o)
-        group, piece = group_of.get(n, ("*", -1))
-        partner = o in partner_atoms or k in spiro or group.count("*") > 1
-        tetrahedral_s = atom.GetAtomicNum() in (16, 15)  # S=O of a sulfoxide has a face
-        if k in planar or (mol.GetBondWithIdx(bidx).GetBondType() != Chem.BondType.SINGLE
-                           and not tetrahedral_s):
-            face = "planar"
-        elif atom.GetAtomicNum() == 7 and not (
-            atom.GetFormalCharge() > 0 and atom.GetTotalNumHs() == 0
-        ):
-            face = "invertible"
-        else:
-            face = face_from_tag(atom, atoms[k - 1], atoms[(k + 1) % 6], o) or "unassigned"
-        cls = group_class(mol, first, a)
-        key = group if partner else _strip_stereo(group)
-        out.append(Substituent(k, a, o, group, key, face, partner, cls, first.GetAtomicNum(), piece))
+        for o, order in exo:
+            group, members = view.group_smiles(ring_set, a, o)
+            partner = o in partner_atoms or k in spiro or group.count("*") > 1
+            tetrahedral_s = z[a] in (16, 15)  # S=O of a sulfoxide has a face
+            if k in planar or (order != 1.0 and not tetrahedral_s):
+                face = "planar"
+            elif z[a] == 7 and not (atom.GetFormalCharge() > 0 and atom.GetTotalNumHs() == 0):
+                face = "invertible"
+            else:
+                face = face_from_tag(atom, atoms[k - 1], atoms[(k + 1) % 6], o) or "unassigned"
+            first = mol.GetAtomWithIdx(o)
+            cls = group_class(mol, first, a)
+            out.append(Substituent(k, a, o, group, group, face, partner, cls, z[o], min(members)))
     return out
