@@ -339,3 +339,23 @@ def test_resume_refuses_when_the_parameter_tables_changed(curated, tmp_path):
     manifest_path.write_text(json.dumps(manifest))
     with pytest.raises(UsageError, match="parameter tables"):
         annotate(curated[:1], out, resume=True)
+
+
+def test_windows_line_endings_give_the_same_rows(tmp_path):
+    plain, crlf = [], []
+    for name in ("mixed.smi", "quoted.csv", "broken.sdf"):
+        data = (DATA / name).read_bytes()
+        (tmp_path / "lf").mkdir(exist_ok=True)
+        (tmp_path / "crlf").mkdir(exist_ok=True)
+        (tmp_path / "lf" / name).write_bytes(data)
+        (tmp_path / "crlf" / name).write_bytes(data.replace(b"\n", b"\r\n"))
+        plain.append(tmp_path / "lf" / name)
+        crlf.append(tmp_path / "crlf" / name)
+    annotate(plain, tmp_path / "a", jobs=1)
+    annotate(crlf, tmp_path / "b", jobs=1)
+    a, b = tables(tmp_path / "a"), tables(tmp_path / "b")
+    for t in ("molecules", "rings", "substituents"):
+        pd.testing.assert_frame_equal(a[t].drop(columns="input_file"), b[t].drop(columns="input_file"))
+    pd.testing.assert_frame_equal(
+        a["errors"][["mol_id", "input_row", "stage"]], b["errors"][["mol_id", "input_row", "stage"]]
+    )
