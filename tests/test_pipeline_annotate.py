@@ -359,3 +359,11 @@ def test_windows_line_endings_give_the_same_rows(tmp_path):
     pd.testing.assert_frame_equal(
         a["errors"][["mol_id", "input_row", "stage"]], b["errors"][["mol_id", "input_row", "stage"]]
     )
+
+
+def test_a_run_that_failed_before_starting_does_not_block_the_next(tmp_path):
+    out = tmp_path / "run"
+    with pytest.raises(FatalError, match="does not exist"):
+        annotate([tmp_path / "typo.smi"], out)
+    annotate([DATA / "mixed.smi"], out, jobs=1)  # no --overwrite needed
+    assert json.loads((out / "manifest.json").read_text())["status"] == "finished"

@@ -284,6 +284,8 @@ def _prepare_out_dir(out_dir: str, resume: bool, overwrite: bool) -> dict | None
     if os.path.exists(out_dir) and not os.path.isdir(out_dir):
         raise UsageError(f"--out {out_dir} exists and is not a directory")
     entries = os.listdir(out_dir) if os.path.isdir(out_dir) else []
+    if all(e in TABLES and not os.listdir(os.path.join(out_dir, e)) for e in entries):
+        entries = []  # only our empty table folders: a run that stopped before starting
     if resume:
         manifest = _read_manifest(out_dir) if entries else None
         if manifest is not None:
