@@ -62,7 +62,8 @@ def add_annotate_parser(subparsers) -> argparse.ArgumentParser:
         type=_positive_int,
         default=None,
         metavar="N",
-        help="records per chunk, the unit of work and of --resume (default: 1000)",
+        help="records per chunk, the unit of work and of --resume (default: about four "
+        "chunks per worker, 10 to 1000 records)",
     )
     p.add_argument(
         "--temperature", type=float, default=None, metavar="K", help="temperature in kelvin (default: 298.15)"
