@@ -11,8 +11,15 @@ from .errors import InputError
 
 __version__ = "0.1.0"
 
-__all__ = ["analyze", "parse_smiles", "InputError", "MEDIA", "DEFAULT_MEDIUM",
+__all__ = ["analyze", "annotate", "annotate_frame", "parse_smiles", "InputError", "MEDIA", "DEFAULT_MEDIUM",
            "DEFAULT_TEMPERATURE", "__version__"]
+
+
+def annotate_frame(df, smiles_column="smiles", **options):
+    """pandas in, molecules table out (one row per input row; see README)."""
+    from .pipeline.frame import annotate_frame as _annotate_frame
+
+    return _annotate_frame(df, smiles_column=smiles_column, **options)
 
 
 def annotate(inputs, out_dir, **options):

@@ -27,11 +27,11 @@ class SubstituentResult:
     source_ref: str = ""
     axial_in_chair: tuple[bool | None, bool | None] = (None, None)
 
+    COLUMNS = ("ring_id", "ring_atom", "position", "first_atom", "group", "face",
+               "axial_fraction", "a_value_kjmol", "a_value_source")
+
     def to_dict(self) -> dict:
-        d = asdict(self)
-        for k in ("name", "source_ref", "axial_in_chair"):
-            d.pop(k)
-        return d
+        return {k: getattr(self, k) for k in self.COLUMNS}
 
 
 @dataclass

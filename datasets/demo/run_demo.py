@@ -21,7 +21,7 @@ EXAMPLES = [
 def main() -> int:
     out = Path(sys.argv[1] if len(sys.argv) > 1 else "demo-run")
     cmd = [sys.executable, "-m", "libconf", "annotate", str(LIBRARY), "--out", str(out), "--overwrite"]
-    print("$", " ".join(cmd[2:]) if cmd[1] == "-m" else " ".join(cmd))
+    print("$ libconf", " ".join(cmd[3:]), flush=True)
     rc = subprocess.call(cmd)
     if rc != 0:
         return rc
@@ -37,7 +37,7 @@ def main() -> int:
         print(f"\nerror rows ({len(errors)}):")
         print(errors[["mol_id", "reason"]].head(5).to_string(index=False))
     for title, smi in EXAMPLES:
-        print(f"\n$ libconf explain '{smi}'   # {title}")
+        print(f"\n$ libconf explain '{smi}'   # {title}", flush=True)
         extra = ["--medium", "nonpolar"] if "nonpolar" in title else []
         subprocess.call([sys.executable, "-m", "libconf", "explain", smi, *extra])
     print(f"\nTables written to {out}/ (molecules, rings, substituents, errors).")

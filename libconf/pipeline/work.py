@@ -103,7 +103,10 @@ def time_guard(seconds: float | None):
         yield
         return
     watchdog = _in_worker_process()
-    previous = signal.signal(signal.SIGALRM, _on_alarm)
+    # The handler is installed once and left in place (re-installing it per record
+    # costs more than the analysis of a ring-free molecule); the timer is per record.
+    if signal.getsignal(signal.SIGALRM) is not _on_alarm:
+        signal.signal(signal.SIGALRM, _on_alarm)
     signal.setitimer(signal.ITIMER_REAL, seconds)
     if watchdog:
         _watchdog.arm(seconds)
@@ -111,7 +114,6 @@ def time_guard(seconds: float | None):
         yield
     finally:
         signal.setitimer(signal.ITIMER_REAL, 0)
-        signal.signal(signal.SIGALRM, previous)
         if watchdog:
             _watchdog.disarm()
 
