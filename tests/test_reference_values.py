@@ -240,3 +240,11 @@ def test_thiane_oxide_prefers_axial_oxygen(ring_of):
 def test_bicyclooctane_ring_is_held_in_a_boat():
     res = libconf.analyze("C1CC2CCC1CC2")
     assert all(r.lock_class == "fixed" and "boat" in r.lock_reason for r in res.rings)
+
+
+def test_n_methylpiperidine_inverts_more_slowly_than_piperidine(ring_of):
+    # N-methylpiperidine 11.5-12 vs piperidine 10.4 kcal/mol (Lambert and co-workers; memory)
+    nme = ring_of("CN1CCCCC1").barrier_kjmol
+    nh = ring_of("N1CCCCC1").barrier_kjmol
+    assert 10.2 * KCAL <= nh <= 10.6 * KCAL
+    assert 11.3 * KCAL <= nme <= 12.2 * KCAL

@@ -17,7 +17,7 @@ R_KJ = 8.314462618e-3
 # Barrier base classes: a carbonyl or lactam ring takes the base of its parent
 # heterocycle, and the trigonal atom enters as its own term.
 BASE_CLASS = {"cyclohexanone": "cyclohexane", "lactam": "piperidine", "lactone": "oxane"}
-ALKYL_CLASSES = {"primary_alkyl", "secondary_alkyl", "tertiary_alkyl", "benzylic_methylene",
+ALKYL_CLASSES = {"methyl", "primary_alkyl", "secondary_alkyl", "tertiary_alkyl", "benzylic_methylene",
                  "hetero_methylene"}
 
 
@@ -75,7 +75,7 @@ def barrier_estimate(P: Parameters, ring: Ring, sites: list[Site], dg_flip: floa
         if s.constrained:
             continue
         atom_is_n = any(h == s.k and el == "N" for h, el in ring.hetero)
-        if atom_is_n and s.sub.group_class in ALKYL_CLASSES | {"other"} and s.sub.first_element == 6:
+        if atom_is_n and s.sub.face == "invertible" and s.sub.group_class in ALKYL_CLASSES:
             row = P.barrier_terms["n_alkyl"]
             terms.append(Contribution(-1, "n_alkyl", f"N-alkyl ({s.sub.group})", row["energy_kjmol"], row["source"]))
         elif s.sub.key in ("*Cl", "*F"):

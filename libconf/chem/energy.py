@@ -15,6 +15,7 @@ from __future__ import annotations
 import itertools
 import math
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 from rdkit import Chem
 
@@ -59,9 +60,8 @@ def _exo_nitrogen_kind(mol: Chem.Mol, n_atom: Chem.Atom, ring_set: set[int]) -> 
     return None
 
 
-def anomeric_term(P: Parameters, sub: Substituent, medium: str) -> tuple[float, str] | None:
-    """Extra axial stabilisation of an electronegative group next to a ring oxygen."""
-    z = sub.first_element
+def anomeric_term(P: Parameters, z: int, medium: str) -> tuple[float, str] | None:
+    """Extra axial stabilisation of an electronegative group (first atom z) next to a ring O."""
     if z == 8:
         kind = "O"
     elif z in HALOGENS:
@@ -80,37 +80,57 @@ def context_a_value(P: Parameters, mol: Chem.Mol, ring: Ring, sub: Substituent,
                     medium: str, temperature: float) -> Site:
     """A-value of one substituent in its ring position (the heart of the table look-up)."""
     k = sub.ring_index
-    locant = k + 1
     cls = ring.ring_class
-    ring_set = set(ring.atoms)
-    allylic = _allylic_partner(P, mol, ring, k, ring_set)
-    row = None if allylic else P.a_value(sub.key, cls, locant, medium)
-    notes: list[str] = []
-    if row is not None:
-        return Site(sub, row.at(temperature), row.uncertainty_kjmol, "table", row.source,
-                    row.name, [f"tabulated for {cls} position {locant}"])
+    allylic = _allylic_partner(P, mol, ring, k, set(ring.atoms)) if ring.planar_kinds else None
+    rels = tuple((el, ring_distance(h, k)) for h, el in ring.hetero)
+    tabulated = (not allylic and P.a_value(sub.key, cls, k + 1, medium) is not None) or (
+        not sub.partner_ring and P.base_a_value(sub.key, medium) is not None)
+    group_class = None if tabulated else ensure_group_class(mol, sub)
+    c_atom = mol.GetAtomWithIdx(sub.ring_atom).GetAtomicNum() == 6 if rels else True
+    a, u, source, ref, name, notes = _a_value_in_context(
+        P, sub.key, cls, k + 1, medium, temperature, sub.partner_ring, rels, c_atom, allylic,
+        sub.first_element, group_class)
+    return Site(sub, a, u, source, ref, name, list(notes))
 
-    base = None if sub.partner_ring else P.base_a_value(sub.key, medium)
+
+def ensure_group_class(mol: Chem.Mol, sub: Substituent) -> str:
+    """The coarse class of a group (computed only when a rule needs it)."""
+    if sub.group_class is None:
+        from .substituents import group_class
+
+        sub.group_class = group_class(mol, mol.GetAtomWithIdx(sub.first_atom), sub.ring_atom)
+    return sub.group_class
+
+
+@lru_cache(maxsize=100_000)
+def _a_value_in_context(P: Parameters, key: str, cls: str, locant: int, medium: str,
+                        temperature: float, partner_ring: bool, rels: tuple, c_atom: bool,
+                        allylic: str | None, first_element: int, group_class: str | None):
+    """(a, u, source, ref, name, notes) for a group in a ring context; memoised, since a
+    library repeats the same few hundred group/context combinations."""
+    row = None if allylic else P.a_value(key, cls, locant, medium)
+    if row is not None:
+        return (row.at(temperature), row.uncertainty_kjmol, "table", row.source, row.name,
+                (f"tabulated for {cls} position {locant}",))
+    notes: list[str] = []
+    base = None if partner_ring else P.base_a_value(key, medium)
     if base is not None:
         a, u, source, ref, name = base.at(temperature), base.uncertainty_kjmol, "table", base.source, base.name
     else:
-        like = P.group_classes.get(sub.group_class, P.group_classes["other"])
+        like = P.group_classes.get(group_class, P.group_classes["other"])
         base = P.base_a_value(like, medium)
         a, u = base.at(temperature), P.constants["group_model_uncertainty"]
         source, ref = "model", f"by analogy with {base.name} ({base.source})"
-        name = "ring bond" if sub.partner_ring else sub.group_class.replace("_", " ")
+        name = "ring bond" if partner_ring else (group_class or "other").replace("_", " ")
         notes.append(f"not tabulated: taken as {base.name}-like")
 
-    ring_atom = mol.GetAtomWithIdx(sub.ring_atom)
     anomeric = None
-    if ring_atom.GetAtomicNum() == 6 and any(
-        el == "O" and ring_distance(h, k) == 1 for h, el in ring.hetero
-    ):
-        anomeric = anomeric_term(P, sub, medium)
+    if c_atom and any(el == "O" and d == 1 for el, d in rels):
+        anomeric = anomeric_term(P, first_element, medium)
 
     factor = 1.0
-    for h, el in ring.hetero:
-        rel = RELATION[ring_distance(h, k)]
+    for el, d in rels:
+        rel = RELATION[d]
         if anomeric is not None and el == "O" and rel == "alpha":
             continue
         if allylic and el == "N" and rel == "alpha":
@@ -127,15 +147,13 @@ def context_a_value(P: Parameters, mol: Chem.Mol, ring: Ring, sub: Substituent,
         u = math.hypot(u, 1.5)
         notes.append(f"anomeric effect -{anomeric[0]:.1f} kJ/mol")
         ref += f"; anomeric term: {anomeric[1]}"
-
     if allylic:
-        kind = allylic
-        strain = P.constants.get(f"allylic_strain_{kind}", P.constants["allylic_strain_other"])
+        strain = P.constants.get(f"allylic_strain_{allylic}", P.constants["allylic_strain_other"])
         a -= strain
         u = math.hypot(u, 3.0)
-        notes.append(f"allylic 1,3-strain with the N-{kind} group -{strain:.1f} kJ/mol")
-        ref += f"; allylic strain: {P.constant_sources.get(f'allylic_strain_{kind}', '')}"
-    return Site(sub, a, u, source, ref, name, notes)
+        notes.append(f"allylic 1,3-strain with the N-{allylic} group -{strain:.1f} kJ/mol")
+        ref += f"; allylic strain: {P.constant_sources.get(f'allylic_strain_{allylic}', '')}"
+    return a, u, source, ref, name, tuple(notes)
 
 
 def _allylic_partner(P: Parameters, mol: Chem.Mol, ring: Ring, k: int, ring_set: set[int]) -> str | None:

@@ -33,7 +33,7 @@ class Substituent:
     key: str  # group without stereo marks, for table look-ups
     face: str  # up | down | invertible | planar | unassigned
     partner_ring: bool = False  # bond belongs to a fused / bridged / spiro partner ring
-    group_class: str = "other"
+    group_class: str | None = None  # coarse class, filled in when a rule needs it
     first_element: int = 6
     piece: int = -1  # which cut-out piece the group is (shared by both ends of a bridge)
 
@@ -98,7 +98,7 @@ def group_class(mol: Chem.Mol, first: Chem.Atom, ring_atom: int) -> str:
             if n.GetIsAromatic():
                 return "benzylic_methylene"
             return "primary_alkyl" if n.GetAtomicNum() == 6 else "hetero_methylene"
-        return "other"
+        return "methyl"
     if z == 8:
         for n in nbrs:
             if n.GetAtomicNum() == 6 and any(
@@ -152,7 +152,7 @@ def ring_substituents(view: MolView, ring: Ring) -> list[Substituent]:
                 face = "invertible"
             else:
                 face = face_from_tag(atom, atoms[k - 1], atoms[(k + 1) % 6], o) or "unassigned"
-            first = mol.GetAtomWithIdx(o)
-            cls = group_class(mol, first, a)
+            # the class of an N-substituent feeds the barrier's N-alkyl term; others on demand
+            cls = group_class(mol, mol.GetAtomWithIdx(o), a) if z[a] == 7 else None
             out.append(Substituent(k, a, o, group, group, face, partner, cls, z[o], min(members)))
     return out

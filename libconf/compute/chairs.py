@@ -1,0 +1,357 @@
+"""Both chairs of one saturated six-membered ring, in 3D, with MMFF94 energies.
+
+Conventions (the same ones the engine uses without coordinates):
+
+* The ring is traversed in the order of ``ring_atoms`` (positions 0..5). Its
+  normal is taken by the right-hand rule over that traversal,
+  ``n = sum_i (r_i - c) x (r_{i+1} - c)`` with ``c`` the ring centroid; "up"
+  means along ``n``.
+* An atom *puckers* up or down by the sign of its displacement from the ring's
+  mean plane along ``n``. In a chair the six displacements alternate.
+* **Chair 0** is the chair in which ring position 0 puckers up; then even
+  positions pucker up and odd ones down. **Chair 1** is its ring flip.
+* An atom's axial bond points the way the atom puckers. So a substituent on
+  face ``f`` of position ``k`` is axial in chair 0 iff ``(k even) == (f up)``,
+  and its face is the pucker direction when it is axial, the opposite one when
+  it is equatorial.
+* A ring is a chair when its six endocyclic torsions alternate in sign and all
+  have a magnitude of at least ``min_torsion`` (40 degrees by default;
+  cyclohexane's chair torsions are about 55 degrees, common practice).
+  Anything else is reported as ``TWIST`` (twist-boat, boat, half-chair,
+  envelope).
+
+Sampling: ETKDG embeddings, each optimised with MMFF94. A ring atom carrying
+two different exocyclic neighbours but no chiral tag (the CH of a
+monosubstituted cyclohexane) gets a tag first, so that every conformer has its
+substituents on the same faces and the two chairs are the only difference
+that matters. When sampling yields too few conformers of one chair, the
+missing chair is forced from the other one: MMFF94 with the six ring torsions
+constrained to the mirror-image pattern (each torsion's sign reversed), then
+released and re-optimised without constraints; it is kept only if it is
+still the wanted chair. Several conformers per chair are kept (different
+side-chain rotamers), so that the best one is a minimum over rotamers, not an
+artefact of one embedding.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from rdkit import Chem
+from rdkit.Chem import AllChem
+
+from ..chem.substituents import face_from_tag
+
+KCAL_TO_KJ = 4.184
+TWIST = -1  # chair label of a conformer whose ring is not a chair
+_CW = Chem.ChiralType.CHI_TETRAHEDRAL_CW
+_UNTAGGED = (Chem.ChiralType.CHI_UNSPECIFIED, Chem.ChiralType.CHI_OTHER)
+
+
+# --------------------------------------------------------------------------- geometry
+
+
+def dihedral(p0: np.ndarray, p1: np.ndarray, p2: np.ndarray, p3: np.ndarray) -> float:
+    """Torsion angle p0-p1-p2-p3 in degrees, in (-180, 180]."""
+    b0, b1, b2 = p0 - p1, p2 - p1, p3 - p2
+    b1n = b1 / np.linalg.norm(b1)
+    v = b0 - np.dot(b0, b1n) * b1n
+    w = b2 - np.dot(b2, b1n) * b1n
+    x = np.dot(v, w)
+    y = np.dot(np.cross(b1n, v), w)
+    return float(np.degrees(np.arctan2(y, x)))
+
+
+def ring_torsions(pos: np.ndarray, ring: tuple[int, ...]) -> np.ndarray:
+    """The six endocyclic torsions; element i is about the bond ring[i]-ring[i+1]."""
+    r = [pos[a] for a in ring]
+    return np.array([dihedral(r[i - 1], r[i], r[(i + 1) % 6], r[(i + 2) % 6]) for i in range(6)])
+
+
+def ring_normal(pos: np.ndarray, ring: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray]:
+    """(centroid, unit right-hand normal) of the ring traversed in ``ring`` order."""
+    r = pos[list(ring)]
+    c = r.mean(axis=0)
+    n = sum(np.cross(r[i] - c, r[(i + 1) % 6] - c) for i in range(6))
+    return c, n / np.linalg.norm(n)
+
+
+def puckers(pos: np.ndarray, ring: tuple[int, ...]) -> np.ndarray:
+    """Signed displacement (angstrom) of each ring atom from the mean plane, along the normal."""
+    c, n = ring_normal(pos, ring)
+    return np.array([float(np.dot(pos[a] - c, n)) for a in ring])
+
+
+def chair_label(pos: np.ndarray, ring: tuple[int, ...], min_torsion: float = 40.0) -> int:
+    """0 or 1 for the two chairs (see the module docstring), TWIST otherwise."""
+    tau = ring_torsions(pos, ring)
+    signs = np.sign(tau)
+    if np.any(np.abs(tau) < min_torsion) or np.any(signs * np.roll(signs, 1) >= 0):
+        return TWIST
+    z = puckers(pos, ring)
+    # a chair's displacements alternate; anything else is not a chair whatever the torsions say
+    if np.any(np.sign(z) * np.roll(np.sign(z), 1) >= 0):
+        return TWIST
+    return 0 if z[0] > 0 else 1
+
+
+def placement(pos: np.ndarray, ring: tuple[int, ...], k: int, atom: int) -> tuple[str, str]:
+    """(axial|equatorial, up|down) of exocyclic ``atom`` bonded to ring position ``k``.
+
+    Valid for a chair. Axial: the bond's component along the normal, taken in the
+    direction the ring atom puckers, exceeds 0.5 of its length (about 1 for an axial
+    bond and about -1/3 for an equatorial one in an ideal chair, common practice).
+    """
+    _, n = ring_normal(pos, ring)
+    z = puckers(pos, ring)[k]
+    b = pos[atom] - pos[ring[k]]
+    along = float(np.dot(b, n)) / float(np.linalg.norm(b)) * (1.0 if z > 0 else -1.0)
+    axial = along > 0.5
+    pucker_up = z > 0
+    up = pucker_up if axial else not pucker_up
+    return ("axial" if axial else "equatorial"), ("up" if up else "down")
+
+
+# --------------------------------------------------------------------------- results
+
+
+@dataclass(frozen=True)
+class ChairConformer:
+    """One MMFF94-optimised conformer whose ring is the chair ``chair``."""
+
+    chair: int
+    energy_kj: float  # MMFF94, kJ/mol
+    positions: np.ndarray  # (n_atoms, 3) angstrom, atom order of ChairPair.mol
+    torsions: tuple[float, ...]  # the six ring torsions, degrees
+    placements: dict[int, str]  # exocyclic atom index -> axial | equatorial
+    forced: bool  # reached by constrained flip from the other chair
+
+
+@dataclass
+class ChairPair:
+    """Both chairs of one ring; conformers of each sorted by MMFF94 energy."""
+
+    mol: Chem.Mol  # with explicit hydrogens; heavy atoms keep the input's indices
+    ring: tuple[int, ...]
+    chairs: dict[int, list[ChairConformer]]
+    faces: dict[int, str]  # exocyclic atom index -> up | down (same in every conformer)
+    n_embedded: int = 0
+    n_twist: int = 0  # embeddings that ended off-chair after MMFF94
+    n_forced: int = 0  # conformers kept from a forced flip
+    notes: list[str] = field(default_factory=list)
+
+    def best(self, chair: int) -> ChairConformer:
+        if not self.chairs.get(chair):
+            raise LookupError(f"no conformer of chair {chair}")
+        return self.chairs[chair][0]
+
+    def axial_chair(self, atom: int) -> int:
+        """The chair (0/1) in which exocyclic ``atom`` is axial, from the face convention."""
+        k, f = self._position(atom), self.faces[atom]
+        return 0 if (k % 2 == 0) == (f == "up") else 1
+
+    def delta_mmff_kj(self, atom: int) -> float:
+        """E(chair with ``atom`` axial) - E(chair with it equatorial), MMFF94, kJ/mol."""
+        ax = self.axial_chair(atom)
+        return self.best(ax).energy_kj - self.best(1 - ax).energy_kj
+
+    def _position(self, atom: int) -> int:
+        for k, a in enumerate(self.ring):
+            if self.mol.GetBondBetweenAtoms(a, atom) is not None:
+                return k
+        raise ValueError(f"atom {atom} is not bonded to the ring")
+
+
+# --------------------------------------------------------------------------- input
+
+
+def _check_ring(mol: Chem.Mol, ring: tuple[int, ...]) -> None:
+    if len(ring) != 6 or len(set(ring)) != 6:
+        raise ValueError("ring_atoms must be six distinct atom indices")
+    n = mol.GetNumAtoms()
+    if any(not 0 <= a < n for a in ring):
+        raise ValueError("ring_atoms holds an index outside the molecule")
+    for i in range(6):
+        b = mol.GetBondBetweenAtoms(ring[i], ring[(i + 1) % 6])
+        if b is None:
+            raise ValueError(f"ring atoms {ring[i]} and {ring[(i + 1) % 6]} are not bonded (order matters)")
+        if b.GetBondType() != Chem.BondType.SINGLE or b.GetIsAromatic():
+            raise ValueError("the ring is not saturated (every endocyclic bond must be single)")
+
+
+def _pin_faces(mh: Chem.Mol, ring: tuple[int, ...]) -> dict[int, str]:
+    """Tag untagged ring atoms with two different exocyclic neighbours; return every face."""
+    ring_set = set(ring)
+    faces: dict[int, str] = {}
+    for k, a in enumerate(ring):
+        atom = mh.GetAtomWithIdx(a)
+        exo = [n.GetIdx() for n in atom.GetNeighbors() if n.GetIdx() not in ring_set]
+        if len(exo) != 2:
+            continue  # a ring N/O/S with a lone pair, or a trigonal atom: nothing to pin
+        if atom.GetChiralTag() in _UNTAGGED:
+            atom.SetChiralTag(_CW)
+        prev, nxt = ring[k - 1], ring[(k + 1) % 6]
+        for s in exo:
+            f = face_from_tag(atom, prev, nxt, s)
+            if f is not None:
+                faces[s] = f
+    return faces
+
+
+def _conformer_faces(pos: np.ndarray, ring: tuple[int, ...], mh: Chem.Mol) -> dict[int, str]:
+    """Faces from geometry: the substituent lies above its geminal partner or below it."""
+    _, n = ring_normal(pos, ring)
+    ring_set = set(ring)
+    out = {}
+    for a in ring:
+        exo = [x.GetIdx() for x in mh.GetAtomWithIdx(a).GetNeighbors() if x.GetIdx() not in ring_set]
+        if len(exo) == 2:
+            s, t = exo
+            d = float(np.dot(pos[s] - pos[t], n))
+            out[s], out[t] = ("up", "down") if d > 0 else ("down", "up")
+    return out
+
+
+# --------------------------------------------------------------------------- MMFF94
+
+
+def _mmff(mh: Chem.Mol, props, conf_id: int):
+    ff = AllChem.MMFFGetMoleculeForceField(mh, props, confId=conf_id)
+    if ff is None:
+        raise ValueError("MMFF94 has no parameters for this molecule")
+    return ff
+
+
+def _relax(mh: Chem.Mol, props, conf_id: int, max_iters: int = 10000) -> float:
+    """Unconstrained MMFF94 minimisation to convergence; energy in kcal/mol."""
+    ff = _mmff(mh, props, conf_id)
+    for _ in range(5):
+        if ff.Minimize(maxIts=max_iters) == 0:
+            break
+    return float(ff.CalcEnergy())
+
+
+def _force_flip(mh: Chem.Mol, props, conf_id: int, ring: tuple[int, ...], k_torsion: float) -> None:
+    """Drive the ring into the mirror-image torsion pattern of its current chair."""
+    pos = mh.GetConformer(conf_id).GetPositions()
+    target = -ring_torsions(pos, ring)
+    # in steps, through the flat ring: a direct jump to the far pattern can stall at a twist-boat
+    for frac in (0.0, 0.5, 1.0):
+        ff = _mmff(mh, props, conf_id)
+        for i in range(6):
+            quad = (ring[i - 1], ring[i], ring[(i + 1) % 6], ring[(i + 2) % 6])
+            t = frac * float(target[i])
+            ff.MMFFAddTorsionConstraint(*quad, False, t, t, k_torsion)
+        ff.Minimize(maxIts=5000)
+
+
+def _record(mh, ring, cid, energy_kcal, forced, min_torsion) -> ChairConformer | None:
+    pos = mh.GetConformer(cid).GetPositions()
+    label = chair_label(pos, ring, min_torsion)
+    if label == TWIST:
+        return None
+    ring_set = set(ring)
+    places = {}
+    for k, a in enumerate(ring):
+        for x in mh.GetAtomWithIdx(a).GetNeighbors():
+            if x.GetIdx() not in ring_set:
+                places[x.GetIdx()] = placement(pos, ring, k, x.GetIdx())[0]
+    return ChairConformer(
+        chair=label,
+        energy_kj=energy_kcal * KCAL_TO_KJ,
+        positions=pos.copy(),
+        torsions=tuple(float(t) for t in ring_torsions(pos, ring)),
+        placements=places,
+        forced=forced,
+    )
+
+
+def _distinct(confs: list[ChairConformer], keep: int, tol_kj: float = 0.01) -> list[ChairConformer]:
+    out: list[ChairConformer] = []
+    for c in sorted(confs, key=lambda c: c.energy_kj):
+        if all(abs(c.energy_kj - o.energy_kj) > tol_kj for o in out):
+            out.append(c)
+        if len(out) == keep:
+            break
+    return out
+
+
+def both_chairs(
+    mol: Chem.Mol,
+    ring_atoms: tuple[int, ...] | list[int],
+    n_conformers: int = 30,
+    seed: int = 20261201,
+    keep: int = 4,
+    min_torsion: float = 40.0,
+    max_forced: int = 4,
+    k_torsion: float = 200.0,
+) -> ChairPair:
+    """Build both chairs of the ring ``ring_atoms`` (in ring order) of ``mol``.
+
+    Returns up to ``keep`` distinct MMFF94 minima per chair, lowest first.
+    ``seed`` fixes the ETKDG embedding, so a call is reproducible.
+
+    >>> from rdkit import Chem
+    >>> pair = both_chairs(Chem.MolFromSmiles("CC1CCCCC1"), (1, 2, 3, 4, 5, 6), n_conformers=10)
+    >>> pair.delta_mmff_kj(0) > 0  # the methyl prefers equatorial
+    True
+    """
+    ring = tuple(int(a) for a in ring_atoms)
+    _check_ring(mol, ring)
+    mh = Chem.AddHs(mol)
+    faces = _pin_faces(mh, ring)
+    params = AllChem.ETKDGv3()
+    params.randomSeed = int(seed)
+    params.pruneRmsThresh = 0.1
+    cids = list(AllChem.EmbedMultipleConfs(mh, numConfs=int(n_conformers), params=params))
+    if not cids:
+        params.useRandomCoords = True
+        cids = list(AllChem.EmbedMultipleConfs(mh, numConfs=int(n_conformers), params=params))
+    if not cids:
+        raise ValueError("ETKDG could not embed the molecule")
+    props = AllChem.MMFFGetMoleculeProperties(mh)
+    if props is None:
+        raise ValueError("MMFF94 has no parameters for this molecule")
+    pair = ChairPair(mol=Chem.Mol(mh, confId=-1), ring=ring, chairs={0: [], 1: []}, faces={},
+                     n_embedded=len(cids))
+    pair.mol.RemoveAllConformers()
+
+    found: dict[int, list[ChairConformer]] = {0: [], 1: []}
+    for cid in cids:
+        e = _relax(mh, props, cid)
+        rec = _record(mh, ring, cid, e, False, min_torsion)
+        if rec is None:
+            pair.n_twist += 1
+            continue
+        geo = _conformer_faces(rec.positions, ring, mh)
+        if any(geo.get(a) != f for a, f in faces.items()):
+            pair.notes.append(f"conformer {cid}: a substituent off its configured face; dropped")
+            continue
+        found[rec.chair].append(rec)
+
+    for target in (0, 1):
+        if len(_distinct(found[target], keep)) >= min(2, keep):
+            continue
+        sources = _distinct(found[1 - target], max_forced)
+        for src in sources:
+            cid = mh.AddConformer(Chem.Conformer(mh.GetConformer(cids[0])), assignId=True)
+            conf = mh.GetConformer(cid)
+            for i, p in enumerate(src.positions):
+                conf.SetAtomPosition(i, p.tolist())
+            _force_flip(mh, props, cid, ring, k_torsion)
+            e = _relax(mh, props, cid)
+            rec = _record(mh, ring, cid, e, True, min_torsion)
+            if rec is not None and rec.chair == target:
+                found[target].append(rec)
+                pair.n_forced += 1
+            else:
+                pair.notes.append(f"forced chair {target} from conformer of chair {1 - target} did not hold")
+
+    for c in (0, 1):
+        pair.chairs[c] = _distinct(found[c], keep)
+    if any(pair.chairs[c] for c in (0, 1)):
+        sample = next(pair.chairs[c][0] for c in (0, 1) if pair.chairs[c])
+        geo = _conformer_faces(sample.positions, ring, mh)
+        pair.faces = {s: faces.get(s, geo[s]) for s in geo}
+    return pair

@@ -1,0 +1,154 @@
+"""GFN2-xTB energies and geometry optimisation (tblite) of chair conformers.
+
+Needs the optional ``tblite`` package (Python API ``tblite.interface.Calculator``)
+and scipy. Energies in hartree inside, kJ/mol at the surface (1 Eh = 2625.4996
+kJ/mol, CODATA 2018 via common practice). Geometry optimisation: L-BFGS (scipy)
+on Cartesian coordinates with tblite's analytic gradient, converged when the
+largest gradient component is below ``gtol`` (1e-3 Eh/bohr by default).
+Implicit solvent: tblite's ALPB model with a named solvent (``solvent="water"``).
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+
+import numpy as np
+from rdkit import Chem
+
+from .chairs import TWIST, ChairConformer, ChairPair, chair_label, placement
+
+HARTREE_KJ = 2625.4996
+BOHR_ANGSTROM = 0.529177210903  # CODATA 2018
+METHOD = "GFN2-xTB"
+
+
+def tblite_version() -> str:
+    from importlib.metadata import version
+
+    return version("tblite")
+
+
+@dataclass(frozen=True)
+class XtbResult:
+    positions: np.ndarray  # angstrom
+    energy_eh: float
+    max_gradient: float  # Eh/bohr, largest Cartesian component
+    steps: int
+    converged: bool
+
+
+class _Surface:
+    """Energy and gradient at Cartesian coordinates (bohr), reusing the wavefunction."""
+
+    def __init__(self, numbers: np.ndarray, positions_bohr: np.ndarray, charge: int, solvent: str | None):
+        os.environ.setdefault("OMP_NUM_THREADS", "1")
+        from tblite.interface import Calculator
+
+        self.calc = Calculator(METHOD, numbers, positions_bohr, charge=float(charge))
+        self.calc.set("verbosity", 0)
+        if solvent:
+            self.calc.add("alpb-solvation", solvent)
+        self.res = None
+        self.n_calls = 0
+
+    def __call__(self, x: np.ndarray) -> tuple[float, np.ndarray]:
+        self.calc.update(positions=x.reshape(-1, 3))
+        self.res = self.calc.singlepoint(self.res)
+        self.n_calls += 1
+        return float(self.res.get("energy")), np.asarray(self.res.get("gradient")).ravel().copy()
+
+
+def single_point(numbers, positions_ang, charge: int = 0, solvent: str | None = None) -> float:
+    """GFN2-xTB energy in hartree at the given geometry (angstrom)."""
+    x = np.asarray(positions_ang, dtype=float) / BOHR_ANGSTROM
+    return _Surface(np.asarray(numbers), x, charge, solvent)(x.ravel())[0]
+
+
+def optimise(
+    numbers,
+    positions_ang,
+    charge: int = 0,
+    solvent: str | None = None,
+    gtol: float = 1e-3,
+    max_steps: int = 600,
+) -> XtbResult:
+    """Minimise the GFN2-xTB energy from ``positions_ang``; returns the last geometry either way."""
+    from scipy.optimize import minimize
+
+    x0 = np.asarray(positions_ang, dtype=float).ravel() / BOHR_ANGSTROM
+    surf = _Surface(np.asarray(numbers), x0.reshape(-1, 3), charge, solvent)
+    x, steps = x0, 0
+    # L-BFGS can stop on its energy criterion before the gradient one: restart (fresh history) then
+    for _ in range(3):
+        out = minimize(surf, x, jac=True, method="L-BFGS-B",
+                       options={"gtol": gtol, "ftol": 1e-15, "maxiter": max_steps, "maxcor": 30})
+        x, steps = out.x, steps + int(out.nit)
+        e, g = surf(x)
+        gmax = float(np.max(np.abs(g)))
+        if gmax <= gtol or steps >= max_steps:
+            break
+    return XtbResult(x.reshape(-1, 3) * BOHR_ANGSTROM, e, gmax, steps, gmax <= gtol)
+
+
+@dataclass(frozen=True)
+class ChairOptimum:
+    """A chair conformer re-optimised at GFN2-xTB, with the checks that make it usable."""
+
+    start: ChairConformer
+    result: XtbResult
+    chair_after: int  # chair label after optimisation (TWIST if the ring left the chair)
+    placement_after: str  # axial | equatorial of the watched substituent after optimisation
+
+    @property
+    def usable(self) -> bool:
+        return (self.result.converged and self.chair_after == self.start.chair)
+
+
+@dataclass(frozen=True)
+class AxialEquatorial:
+    """E(chair with the substituent axial) - E(chair with it equatorial), kJ/mol."""
+
+    delta_kj: float | None  # None when one chair has no usable optimum
+    axial: list[ChairOptimum]
+    equatorial: list[ChairOptimum]
+    solvent: str | None
+
+    @property
+    def n_usable(self) -> tuple[int, int]:
+        return sum(o.usable for o in self.axial), sum(o.usable for o in self.equatorial)
+
+
+def _charge(mol: Chem.Mol) -> int:
+    return sum(a.GetFormalCharge() for a in mol.GetAtoms())
+
+
+def reoptimise_chair(pair: ChairPair, chair: int, atom: int, n_best: int = 3, solvent: str | None = None,
+                     gtol: float = 1e-3) -> list[ChairOptimum]:
+    """GFN2-xTB re-optimisation of the ``n_best`` lowest MMFF94 conformers of one chair."""
+    numbers = np.array([a.GetAtomicNum() for a in pair.mol.GetAtoms()])
+    charge = _charge(pair.mol)
+    k = pair._position(atom)
+    out = []
+    for conf in pair.chairs[chair][:n_best]:
+        res = optimise(numbers, conf.positions, charge=charge, solvent=solvent, gtol=gtol)
+        label = chair_label(res.positions, pair.ring)
+        place = placement(res.positions, pair.ring, k, atom)[0] if label != TWIST else "none"
+        out.append(ChairOptimum(conf, res, label, place))
+    return out
+
+
+def axial_minus_equatorial(pair: ChairPair, atom: int, n_best: int = 3, solvent: str | None = None,
+                           gtol: float = 1e-3) -> AxialEquatorial:
+    """GFN2-xTB ΔE = E(axial chair) - E(equatorial chair) for exocyclic ``atom``, kJ/mol.
+
+    Each chair's energy is the lowest over its ``n_best`` re-optimised conformers that
+    converged and stayed in that chair.
+    """
+    ax = pair.axial_chair(atom)
+    axial = reoptimise_chair(pair, ax, atom, n_best, solvent, gtol)
+    equatorial = reoptimise_chair(pair, 1 - ax, atom, n_best, solvent, gtol)
+    ea = [o.result.energy_eh for o in axial if o.usable]
+    ee = [o.result.energy_eh for o in equatorial if o.usable]
+    delta = (min(ea) - min(ee)) * HARTREE_KJ if ea and ee else None
+    return AxialEquatorial(delta, axial, equatorial, solvent)
