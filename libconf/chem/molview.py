@@ -163,33 +163,41 @@ class _Walker:
 
     def _emit(self, a: int) -> str:
         v = self.v
+        arom = v.arom
         out = [v.token(a)]
         closures = self.closures.get(a)
-        for b, o in closures or ():
-            key = (a, b) if a < b else (b, a)
-            d = self.open.pop(key, None)
-            if d is None:
-                if self.free:
-                    d = min(self.free)
-                    self.free.remove(d)
+        if closures:
+            for b, o in closures:
+                key = (a, b) if a < b else (b, a)
+                d = self.open.pop(key, None)
+                if d is None:
+                    if self.free:
+                        d = min(self.free)
+                        self.free.remove(d)
+                    else:
+                        d = self.next_digit
+                        self.next_digit += 1
+                    self.open[key] = d
+                    out.append(str(d) if d < 10 else f"%{d}")
                 else:
-                    d = self.next_digit
-                    self.next_digit += 1
-                self.open[key] = d
-                out.append(str(d) if d < 10 else f"%{d}")
-            else:
-                out.append(v.bond_symbol(a, b, o) + (str(d) if d < 10 else f"%{d}"))
-                self.free.append(d)
+                    out.append(v.bond_symbol(a, b, o) + (str(d) if d < 10 else f"%{d}"))
+                    self.free.append(d)
         if a in self.touching:
             parent = self.parent[a]
             branches = [v.bond_symbol(a, b, o) + "*" for b, o in v.nbrs[a] if b in self.stop and b != parent]
         else:
             branches = []
         for b, o in self.children[a]:
-            branches.append(v.bond_symbol(a, b, o) + self._emit(b))
+            if o == 1.0:
+                sym = "-" if arom[a] and arom[b] else ""
+            else:
+                sym = BOND_SYMBOL.get(o, "~")
+            branches.append(sym + self._emit(b))
         if branches:
-            out.extend(f"({x})" for x in branches[:-1])
-            out.append(branches[-1])
+            last = branches.pop()
+            for x in branches:
+                out.append("(" + x + ")")
+            out.append(last)
         return "".join(out)
 
 
