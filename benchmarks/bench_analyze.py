@@ -42,8 +42,10 @@ def main() -> None:
     args = ap.parse_args()
     sets = {
         "NCI": [os.path.join(RDConfig.RDDataDir, "NCI", "first_5K.smi")],
-        "ChEMBL": [os.path.join(RDConfig.RDContribDir, "FreeWilson", "data", "CHEMBL2321810.smi"),
-                   os.path.join(RDConfig.RDContribDir, "fraggle", "data", "ChEMBL_11265_actives.smi")],
+        "ChEMBL": [
+            os.path.join(RDConfig.RDContribDir, "FreeWilson", "data", "CHEMBL2321810.smi"),
+            os.path.join(RDConfig.RDContribDir, "fraggle", "data", "ChEMBL_11265_actives.smi"),
+        ],
     }
     if args.files:
         sets["extra"] = args.files
@@ -55,7 +57,8 @@ def main() -> None:
         rb = [s for s, m in parsed if m is not None and m.GetRingInfo().NumRings() > 0]
         groups[f"{name} ring-bearing"] = rb
         groups[f"{name} with a saturated 6-ring"] = [
-            s for s, m in parsed if m is not None and saturated_six_rings(m)]
+            s for s, m in parsed if m is not None and saturated_six_rings(m)
+        ]
         everything += rb
     groups["all ring-bearing"] = everything
 
@@ -81,9 +84,11 @@ def main() -> None:
                 fn(smis)
                 best[name] = min(best[name], time.perf_counter() - t0)
         n = len(smis)
-        print(f"{label}: {n} molecules; bare parse {best['parse'] / n * 1e6:.1f} us/mol, "
-              f"analyze {best['analyze'] / n * 1e6:.1f} us/mol, "
-              f"ratio {best['analyze'] / best['parse']:.2f}")
+        print(
+            f"{label}: {n} molecules; bare parse {best['parse'] / n * 1e6:.1f} us/mol, "
+            f"analyze {best['analyze'] / n * 1e6:.1f} us/mol, "
+            f"ratio {best['analyze'] / best['parse']:.2f}"
+        )
 
 
 if __name__ == "__main__":

@@ -11,8 +11,17 @@ from .errors import InputError
 
 __version__ = "0.1.0"
 
-__all__ = ["analyze", "annotate", "annotate_frame", "parse_smiles", "InputError", "MEDIA", "DEFAULT_MEDIUM",
-           "DEFAULT_TEMPERATURE", "__version__"]
+__all__ = [
+    "analyze",
+    "annotate",
+    "annotate_frame",
+    "parse_smiles",
+    "InputError",
+    "MEDIA",
+    "DEFAULT_MEDIUM",
+    "DEFAULT_TEMPERATURE",
+    "__version__",
+]
 
 
 def annotate_frame(df, smiles_column="smiles", **options):

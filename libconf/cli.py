@@ -31,23 +31,35 @@ def _temperature(text: str) -> float:
 
 
 def _add_conditions(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--temperature", type=_temperature, default=DEFAULT_TEMPERATURE, metavar="K",
-                   help=f"temperature in kelvin (default {DEFAULT_TEMPERATURE})")
-    p.add_argument("--medium", choices=MEDIA, default=DEFAULT_MEDIUM,
-                   help=f"solvent setting for medium-dependent increments (default {DEFAULT_MEDIUM})")
+    p.add_argument(
+        "--temperature",
+        type=_temperature,
+        default=DEFAULT_TEMPERATURE,
+        metavar="K",
+        help=f"temperature in kelvin (default {DEFAULT_TEMPERATURE})",
+    )
+    p.add_argument(
+        "--medium",
+        choices=MEDIA,
+        default=DEFAULT_MEDIUM,
+        help=f"solvent setting for medium-dependent increments (default {DEFAULT_MEDIUM})",
+    )
 
 
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="libconf",
         description="Ring-conformation descriptors for saturated six-membered rings: chair "
-                    "preference, axial/equatorial substituents, inversion barrier, lock class. "
-                    "Estimates from published increments; not a substitute for experiment.",
+        "preference, axial/equatorial substituents, inversion barrier, lock class. "
+        "Estimates from published increments; not a substitute for experiment.",
     )
     parser.add_argument("--version", action="version", version=f"libconf {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
-    ex = sub.add_parser("explain", help="one molecule: a readable per-ring breakdown",
-                        description="Explain the ring conformations of one molecule.")
+    ex = sub.add_parser(
+        "explain",
+        help="one molecule: a readable per-ring breakdown",
+        description="Explain the ring conformations of one molecule.",
+    )
     ex.add_argument("smiles", metavar="SMILES", help="the molecule (quote it in the shell)")
     ex.add_argument("--json", action="store_true", help="JSON with the output-table field names")
     _add_conditions(ex)

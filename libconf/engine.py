@@ -18,8 +18,16 @@ from rdkit import Chem, rdBase
 
 from . import parameters
 from .chem.barrier import LockThresholds, barrier_estimate, eyring_rate, lock_class, twist_boat_energy
-from .chem.energy import (R_KJ, Site, axial_in_chair, chair_energy, chair_terms, context_a_value,
-                          energy_inputs, pair_terms)
+from .chem.energy import (
+    R_KJ,
+    Site,
+    axial_in_chair,
+    chair_energy,
+    chair_terms,
+    context_a_value,
+    energy_inputs,
+    pair_terms,
+)
 from .chem.molview import MolView
 from .chem.rings import Ring, describe_ring, has_saturated_six_ring, saturated_six_rings
 from .chem.substituents import Substituent, ring_substituents
@@ -81,10 +89,14 @@ def _diagnose(smiles: str) -> InputError:
             m = _VALENCE.search(text)
             if m:
                 idx, el, val = int(m.group(1)), m.group(2), m.group(3)
-                return InputError(f"valence error on {el}{idx + 1} (atom index {idx}): "
-                                  f"valence {val} is more than {el} allows")
+                return InputError(
+                    f"valence error on {el}{idx + 1} (atom index {idx}): "
+                    f"valence {val} is more than {el} allows"
+                )
             if "kekulize" in text.lower():
-                return InputError("aromatic ring cannot be kekulized (check aromatic atoms and their H counts)")
+                return InputError(
+                    "aromatic ring cannot be kekulized (check aromatic atoms and their H counts)"
+                )
             return InputError(f"molecule rejected by RDKit sanitisation: {text.splitlines()[0][:200]}")
         return InputError("SMILES parse error (RDKit could not read the string)")
 
@@ -103,6 +115,7 @@ def parse_smiles(smiles: str) -> Chem.Mol:
 
 
 # --- one ring -------------------------------------------------------------------
+
 
 @dataclass
 class _Constraint:
@@ -127,8 +140,7 @@ class _RingModel:
         mol = view.mol
         self.subs: list[Substituent] = ring_substituents(view, ring)
         self.sites: list[Site] = [
-            context_a_value(P, mol, ring, s, medium, temperature) for s in self.subs
-            if s.face != "planar"
+            context_a_value(P, mol, ring, s, medium, temperature) for s in self.subs if s.face != "planar"
         ]
         self.fusions: list[tuple[int, int, int]] = []  # (site i, site j, partner size)
         self.bridges: list[_Constraint] = []
@@ -137,17 +149,29 @@ class _RingModel:
             j = _site_index(self.sites, br.partners[1], br.ends[1])
             if i is None or j is None:
                 continue
-            loc = f"{br.ends[0] + 1},{br.ends[1] + 1}" if br.ends[0] < br.ends[1] else f"{br.ends[1] + 1},{br.ends[0] + 1}"
+            loc = (
+                f"{br.ends[0] + 1},{br.ends[1] + 1}"
+                if br.ends[0] < br.ends[1]
+                else f"{br.ends[1] + 1},{br.ends[0] + 1}"
+            )
             if br.kind == "fusion" and 4 <= br.partner_size <= 7:
                 self.fusions.append((i, j, br.partner_size))
             elif br.kind == "bridge13" and br.bridge_length <= 3:
-                self.bridges.append(_Constraint(
-                    "bridge13", (i, j),
-                    f"bridged polycycle: a {br.bridge_length}-atom bridge across positions {loc} holds one chair"))
+                self.bridges.append(
+                    _Constraint(
+                        "bridge13",
+                        (i, j),
+                        f"bridged polycycle: a {br.bridge_length}-atom bridge across positions {loc} holds one chair",
+                    )
+                )
             elif br.kind == "bridge14" and br.bridge_length <= 3:
-                self.bridges.append(_Constraint(
-                    "boat", (i, j),
-                    f"bridged polycycle: a {br.bridge_length}-atom bridge across positions {loc} holds a boat"))
+                self.bridges.append(
+                    _Constraint(
+                        "boat",
+                        (i, j),
+                        f"bridged polycycle: a {br.bridge_length}-atom bridge across positions {loc} holds a boat",
+                    )
+                )
         for c in self.bridges:
             for n in c.sites:
                 self.sites[n].constrained = True
@@ -165,7 +189,7 @@ class _RingModel:
         self.base_faces = [s.sub.face for s in self.sites]
         has_fixed = any(f in ("up", "down") for f in self.base_faces)
         variables = []
-        for k, ns in sorted(by_atom.items()):
+        for _, ns in sorted(by_atom.items()):
             open_ = [n for n in ns if self.base_faces[n] == "unassigned"]
             if not open_:
                 continue
@@ -190,8 +214,9 @@ class _RingModel:
         self.n_assignments = min(2 ** len(variables), max_assign)
 
     def assignments(self):
-        for bits in itertools.islice(itertools.product((0, 1), repeat=len(self.variables)),
-                                     self.n_assignments):
+        for bits in itertools.islice(
+            itertools.product((0, 1), repeat=len(self.variables)), self.n_assignments
+        ):
             faces = list(self.base_faces)
             for bit, var in zip(bits, self.variables):
                 if len(var) == 1:
@@ -245,10 +270,10 @@ def _evaluate(model: _RingModel, faces: list[str]) -> _Outcome | None:
         reasons.append(c.text)
     if boat:
         allowed = []
-    chairs = {c: chair_energy(model.sites, faces, model.pairs, c, model.rt, model.energy_inputs)
-              for c in allowed}
-    return _Outcome(faces, allowed, chairs, "; ".join(dict.fromkeys(reasons)) or None,
-                    boat, n_cis, fusion)
+    chairs = {
+        c: chair_energy(model.sites, faces, model.pairs, c, model.rt, model.energy_inputs) for c in allowed
+    }
+    return _Outcome(faces, allowed, chairs, "; ".join(dict.fromkeys(reasons)) or None, boat, n_cis, fusion)
 
 
 def _major_energy(o: _Outcome) -> float:
@@ -272,14 +297,25 @@ def _driver_text(model: _RingModel, o: _Outcome, major: int) -> str:
         if axial_in_chair(s.k, o.faces[n], minor) and s.a > best:
             best, text = s.a, f"{s.k + 1}-{_name(s)} equatorial"
         elif axial_in_chair(s.k, o.faces[n], major) and -s.a > best:
-            why = " (anomeric effect)" if any("anomeric" in x for x in s.notes) else (
-                " (allylic 1,3-strain)" if any("allylic" in x for x in s.notes) else "")
+            why = (
+                " (anomeric effect)"
+                if any("anomeric" in x for x in s.notes)
+                else (" (allylic 1,3-strain)" if any("allylic" in x for x in s.notes) else "")
+            )
             best, text = -s.a, f"{s.k + 1}-{_name(s)} axial{why}"
     return text
 
 
-def analyze_ring(P, view: MolView, ring: Ring, ring_id: int, medium: str, temperature: float,
-                 max_assign: int, thresholds: LockThresholds) -> RingResult:
+def analyze_ring(
+    P,
+    view: MolView,
+    ring: Ring,
+    ring_id: int,
+    medium: str,
+    temperature: float,
+    max_assign: int,
+    thresholds: LockThresholds,
+) -> RingResult:
     model = _RingModel(P, view, ring, medium, temperature, max_assign)
     outcomes = [o for o in map(lambda f: _evaluate(model, f), model.assignments()) if o is not None]
     if not outcomes:  # every assignment impossible: report the ring as held, no chair analysis
@@ -292,13 +328,26 @@ def analyze_ring(P, view: MolView, ring: Ring, ring_id: int, medium: str, temper
         return abs(o.chairs[1].energy - o.chairs[0].energy)
 
     res = RingResult(
-        ring_id=ring_id, ring_atoms=list(ring.atoms), ring_class=ring.ring_class,
-        topology=ring.topology, n_planar_ring_atoms=len(ring.planar),
-        stereo_status=model.status, dG_flip_kjmol=None, dG_flip_min_kjmol=None,
-        dG_flip_max_kjmol=None, major_chair_fraction=None, twist_boat_fraction=None,
-        barrier_kjmol=None, flip_rate_per_s=None, flip_half_life_s=None,
-        lock_class="mobile", lock_reason="", value_source="none", uncertainty_kjmol=None,
-        fusion=best.fusion, n_stereo_assignments=len(outcomes),
+        ring_id=ring_id,
+        ring_atoms=list(ring.atoms),
+        ring_class=ring.ring_class,
+        topology=ring.topology,
+        n_planar_ring_atoms=len(ring.planar),
+        stereo_status=model.status,
+        dG_flip_kjmol=None,
+        dG_flip_min_kjmol=None,
+        dG_flip_max_kjmol=None,
+        major_chair_fraction=None,
+        twist_boat_fraction=None,
+        barrier_kjmol=None,
+        flip_rate_per_s=None,
+        flip_half_life_s=None,
+        lock_class="mobile",
+        lock_reason="",
+        value_source="none",
+        uncertainty_kjmol=None,
+        fusion=best.fusion,
+        n_stereo_assignments=len(outcomes),
     )
     if flippable:
         res.dG_flip_min_kjmol = min(dg(o) for o in flippable)
@@ -328,15 +377,22 @@ def analyze_ring(P, view: MolView, ring: Ring, ring_id: int, medium: str, temper
         res.barrier_terms = terms
         res.flip_rate_per_s = eyring_rate(barrier, temperature)
         res.flip_half_life_s = math.log(2) / res.flip_rate_per_s
-        differs = [s for n, s in enumerate(model.sites)
-                   if not s.constrained and abs(best.chairs[0].axial_prob[n] - best.chairs[1].axial_prob[n]) > 0.5]
-        res.uncertainty_kjmol = math.sqrt(sum(s.u ** 2 for s in differs)) if differs else 0.0
+        differs = [
+            s
+            for n, s in enumerate(model.sites)
+            if not s.constrained and abs(best.chairs[0].axial_prob[n] - best.chairs[1].axial_prob[n]) > 0.5
+        ]
+        res.uncertainty_kjmol = math.sqrt(sum(s.u**2 for s in differs)) if differs else 0.0
         res.lock_class = lock_class(res.major_chair_fraction, res.flip_half_life_s, thresholds)
         if res.lock_class == "trapped":
-            res.lock_reason = (f"inversion barrier {barrier:.0f} kJ/mol: half-life "
-                               f"{res.flip_half_life_s:.3g} s at {temperature:g} K")
+            res.lock_reason = (
+                f"inversion barrier {barrier:.0f} kJ/mol: half-life "
+                f"{res.flip_half_life_s:.3g} s at {temperature:g} K"
+            )
         elif res.lock_class in ("anchored", "biased"):
-            res.lock_reason = _driver_text(model, best, major) or f"chairs {res.dG_flip_kjmol:.1f} kJ/mol apart"
+            res.lock_reason = (
+                _driver_text(model, best, major) or f"chairs {res.dG_flip_kjmol:.1f} kJ/mol apart"
+            )
         else:
             res.lock_reason = f"chairs {res.dG_flip_kjmol:.1f} kJ/mol apart"
     else:
@@ -363,19 +419,27 @@ def analyze_ring(P, view: MolView, ring: Ring, ring_id: int, medium: str, temper
             probs = {c: best.chairs[c].axial_prob[n] for c in best.chairs}
             axial_fraction = sum(chair_prob[c] * probs[c] for c in probs)
             in_chair = tuple((probs[c] > 0.5) if c in probs else None for c in (0, 1))
-        res.substituents.append(SubstituentResult(
-            ring_id=ring_id, ring_atom=sub.ring_atom, position=sub.ring_index + 1,
-            first_atom=sub.first_atom, group=sub.group, face=sub.face,
-            axial_fraction=axial_fraction,
-            a_value_kjmol=None if site is None or site.constrained else site.a,
-            a_value_source=None if site is None or site.constrained else site.source,
-            name=_name(site) if site else "", source_ref=site.ref if site else "",
-            axial_in_chair=in_chair,
-        ))
+        res.substituents.append(
+            SubstituentResult(
+                ring_id=ring_id,
+                ring_atom=sub.ring_atom,
+                position=sub.ring_index + 1,
+                first_atom=sub.first_atom,
+                group=sub.group,
+                face=sub.face,
+                axial_fraction=axial_fraction,
+                a_value_kjmol=None if site is None or site.constrained else site.a,
+                a_value_source=None if site is None or site.constrained else site.source,
+                name=_name(site) if site else "",
+                source_ref=site.ref if site else "",
+                axial_in_chair=in_chair,
+            )
+        )
     return res
 
 
 # --- public entry -----------------------------------------------------------------
+
 
 def analyze(
     smiles_or_mol: str | Chem.Mol,
@@ -429,6 +493,7 @@ def analyze(
     all_rings = mol.GetRingInfo().AtomRings()
     for ring_id, atoms in enumerate(rings):
         ring = describe_ring(view, atoms, all_rings)
-        result.rings.append(analyze_ring(P, view, ring, ring_id, medium, temperature,
-                                         max_stereo_assignments, th))
+        result.rings.append(
+            analyze_ring(P, view, ring, ring_id, medium, temperature, max_stereo_assignments, th)
+        )
     return result

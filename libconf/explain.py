@@ -16,19 +16,28 @@ def _num(x, fmt="{:.1f}", none="-"):
 
 
 def _ring_text(r: RingResult, temperature: float) -> list[str]:
-    head = (f"Ring {r.ring_id}: {r.ring_class}, {r.topology}"
-            + (f" ({r.fusion} fusion)" if r.fusion else "")
-            + f", atoms {'-'.join(map(str, r.ring_atoms))} (locants 1-6 in this order)")
+    head = (
+        f"Ring {r.ring_id}: {r.ring_class}, {r.topology}"
+        + (f" ({r.fusion} fusion)" if r.fusion else "")
+        + f", atoms {'-'.join(map(str, r.ring_atoms))} (locants 1-6 in this order)"
+    )
     lines = [head]
     if r.n_planar_ring_atoms:
         lines.append(f"  trigonal (flattened) ring atoms: {r.n_planar_ring_atoms}")
-    lines.append(f"  stereo: {r.stereo_status}"
-                 + (f" ({r.n_stereo_assignments} assignments tried; most stable shown)"
-                    if r.stereo_status != "complete" else ""))
+    lines.append(
+        f"  stereo: {r.stereo_status}"
+        + (
+            f" ({r.n_stereo_assignments} assignments tried; most stable shown)"
+            if r.stereo_status != "complete"
+            else ""
+        )
+    )
     if r.substituents:
         lines.append("  substituents (chair A puckers locants 1, 3, 5 up):")
-        lines.append(f"    {'pos':>3}  {'group':<22} {'face':<11} {'A':>6} {'B':>6} "
-                     f"{'A-value':>8}  {'source':<6} {'axial %':>7}")
+        lines.append(
+            f"    {'pos':>3}  {'group':<22} {'face':<11} {'A':>6} {'B':>6} "
+            f"{'A-value':>8}  {'source':<6} {'axial %':>7}"
+        )
         for s in r.substituents:
             ax = ["ax" if v else "eq" if v is not None else "-" for v in s.axial_in_chair]
             group = s.group if len(s.group) <= 22 else s.group[:19] + "..."
@@ -50,20 +59,31 @@ def _ring_text(r: RingResult, temperature: float) -> list[str]:
         terms = [t for t in r.contributions if t.chair == c]
         if e is None and not terms:
             continue
-        lines.append(f"  {CHAIR_NAMES[c]}: {_num(e)} kJ/mol above a strain-free chair"
-                     + ("  <- major" if r.major_chair == c else ""))
+        lines.append(
+            f"  {CHAIR_NAMES[c]}: {_num(e)} kJ/mol above a strain-free chair"
+            + ("  <- major" if r.major_chair == c else "")
+        )
         for t in terms:
             lines.append(f"      {t.energy_kjmol:+7.1f}  {t.rule:<10} {t.detail}")
-    lines.append(f"  dG_flip {_num(r.dG_flip_kjmol)} kJ/mol"
-                 + (f" (spread {_num(r.dG_flip_min_kjmol)}..{_num(r.dG_flip_max_kjmol)})"
-                    if r.stereo_status != "complete" else "")
-                 + f", uncertainty {_num(r.uncertainty_kjmol)} kJ/mol, values from {r.value_source}")
-    lines.append(f"  populations at {temperature:g} K: major chair {_num(r.major_chair_fraction, '{:.3f}')}, "
-                 f"twist-boat {_num(r.twist_boat_fraction, '{:.3g}')}"
-                 + (f" (twist-boat {_num(r.twist_boat_energy_kjmol)} kJ/mol)" if r.twist_boat_energy_kjmol else ""))
+    lines.append(
+        f"  dG_flip {_num(r.dG_flip_kjmol)} kJ/mol"
+        + (
+            f" (spread {_num(r.dG_flip_min_kjmol)}..{_num(r.dG_flip_max_kjmol)})"
+            if r.stereo_status != "complete"
+            else ""
+        )
+        + f", uncertainty {_num(r.uncertainty_kjmol)} kJ/mol, values from {r.value_source}"
+    )
+    lines.append(
+        f"  populations at {temperature:g} K: major chair {_num(r.major_chair_fraction, '{:.3f}')}, "
+        f"twist-boat {_num(r.twist_boat_fraction, '{:.3g}')}"
+        + (f" (twist-boat {_num(r.twist_boat_energy_kjmol)} kJ/mol)" if r.twist_boat_energy_kjmol else "")
+    )
     if r.barrier_kjmol is not None:
-        lines.append(f"  inversion barrier {r.barrier_kjmol:.1f} kJ/mol from the major chair; "
-                     f"rate {r.flip_rate_per_s:.3g} /s, half-life {r.flip_half_life_s:.3g} s")
+        lines.append(
+            f"  inversion barrier {r.barrier_kjmol:.1f} kJ/mol from the major chair; "
+            f"rate {r.flip_rate_per_s:.3g} /s, half-life {r.flip_half_life_s:.3g} s"
+        )
         for t in r.barrier_terms:
             lines.append(f"      {t.energy_kjmol:+7.1f}  {t.detail}")
     lines.append(f"  lock class: {r.lock_class} - {r.lock_reason}")
@@ -71,8 +91,10 @@ def _ring_text(r: RingResult, temperature: float) -> list[str]:
 
 
 def explain_text(res: MoleculeResult) -> str:
-    out = [f"{res.smiles}", f"medium {res.medium}, {res.temperature:g} K, "
-           f"{res.n_sat6_rings} saturated six-membered ring(s)"]
+    out = [
+        f"{res.smiles}",
+        f"medium {res.medium}, {res.temperature:g} K, {res.n_sat6_rings} saturated six-membered ring(s)",
+    ]
     if not res.rings:
         out.append("No saturated six-membered ring: nothing to analyse.")
     for r in res.rings:
@@ -80,8 +102,10 @@ def explain_text(res: MoleculeResult) -> str:
         out.extend(_ring_text(r, res.temperature))
     if res.rings:
         out.append("")
-        out.append(f"locked scaffold: {'yes' if res.locked_scaffold else 'no'}; "
-                   f"axial strain {res.axial_strain_kjmol:.1f} kJ/mol; "
-                   f"axial groups in major chairs {res.n_axial_major:.2f}")
+        out.append(
+            f"locked scaffold: {'yes' if res.locked_scaffold else 'no'}; "
+            f"axial strain {res.axial_strain_kjmol:.1f} kJ/mol; "
+            f"axial groups in major chairs {res.n_axial_major:.2f}"
+        )
         out.append("Estimates from additive increments; they do not replace experiment.")
     return "\n".join(out)

@@ -72,8 +72,13 @@ class Parameters:
     """All increment tables, indexed for the engine's look-ups."""
 
     FILES = (
-        "a_values.csv", "context_factors.csv", "pair_terms.csv", "rule_constants.csv",
-        "barriers.csv", "barrier_terms.csv", "group_classes.csv",
+        "a_values.csv",
+        "context_factors.csv",
+        "pair_terms.csv",
+        "rule_constants.csv",
+        "barriers.csv",
+        "barrier_terms.csv",
+        "group_classes.csv",
     )
 
     def __init__(self) -> None:
@@ -83,12 +88,17 @@ class Parameters:
             g = canonical_group(r["group"])
             pos = r["position"].strip()
             av = AValue(
-                group=g, name=r["name"], ring_class=r["ring_class"],
-                position=int(pos) if pos else None, medium=r["medium"],
+                group=g,
+                name=r["name"],
+                ring_class=r["ring_class"],
+                position=int(pos) if pos else None,
+                medium=r["medium"],
                 a_value_kjmol=float(r["a_value_kjmol"]),
                 uncertainty_kjmol=float(r["uncertainty_kjmol"]),
-                t_ref_k=_f(r["t_ref_k"]), ds_jmolk=_f(r["ds_jmolk"]) or 0.0,
-                source=r["source"], status=r["status"],
+                t_ref_k=_f(r["t_ref_k"]),
+                ds_jmolk=_f(r["ds_jmolk"]) or 0.0,
+                source=r["source"],
+                status=r["status"],
             )
             self.a_values[(g, av.ring_class, av.position, av.medium)] = av
             self.names.setdefault(g, r["name"])
@@ -98,8 +108,9 @@ class Parameters:
         self.pairs: dict[tuple, dict] = {}
         for r in _rows("pair_terms.csv"):
             a, b = canonical_group(r["group_a"]), canonical_group(r["group_b"])
-            r = dict(r, energy_kjmol=float(r["energy_kjmol"]),
-                     uncertainty_kjmol=float(r["uncertainty_kjmol"]))
+            r = dict(
+                r, energy_kjmol=float(r["energy_kjmol"]), uncertainty_kjmol=float(r["uncertainty_kjmol"])
+            )
             key = (r["kind"], a, b, r["ring_class"], r["positions"], r["medium"])
             self.pairs[key] = r
             if r["kind"] != "geminal":
@@ -107,15 +118,21 @@ class Parameters:
         self.constants = {r["name"]: float(r["value"]) for r in _rows("rule_constants.csv")}
         self.constant_sources = {r["name"]: r["source"] for r in _rows("rule_constants.csv")}
         self.barriers = {
-            r["ring_class"]: dict(r, base_kjmol=float(r["base_kjmol"]),
-                                  twist_boat_dh_kjmol=float(r["twist_boat_dh_kjmol"]),
-                                  uncertainty_kjmol=float(r["uncertainty_kjmol"]))
+            r["ring_class"]: dict(
+                r,
+                base_kjmol=float(r["base_kjmol"]),
+                twist_boat_dh_kjmol=float(r["twist_boat_dh_kjmol"]),
+                uncertainty_kjmol=float(r["uncertainty_kjmol"]),
+            )
             for r in _rows("barriers.csv")
         }
         self.barrier_terms = {
-            r["term"]: dict(r, energy_kjmol=float(r["energy_kjmol"]),
-                            twist_boat_kjmol=float(r["twist_boat_kjmol"]),
-                            uncertainty_kjmol=float(r["uncertainty_kjmol"]))
+            r["term"]: dict(
+                r,
+                energy_kjmol=float(r["energy_kjmol"]),
+                twist_boat_kjmol=float(r["twist_boat_kjmol"]),
+                uncertainty_kjmol=float(r["uncertainty_kjmol"]),
+            )
             for r in _rows("barrier_terms.csv")
         }
         self.group_classes = {
@@ -127,7 +144,8 @@ class Parameters:
         """Most specific tabulated row for a group, or None."""
         av = self.a_values
         for key in (
-            (group, ring_class, position, medium), (group, ring_class, position, "any"),
+            (group, ring_class, position, medium),
+            (group, ring_class, position, "any"),
         ):
             if key in av:
                 return av[key]
@@ -135,16 +153,17 @@ class Parameters:
 
     def base_a_value(self, group: str, medium: str):
         av = self.a_values
-        return av.get((group, "cyclohexane", None, medium)) or av.get(
-            (group, "cyclohexane", None, "any")
-        )
+        return av.get((group, "cyclohexane", None, medium)) or av.get((group, "cyclohexane", None, "any"))
 
     def pair(self, kind: str, a: str, b: str, ring_class: str, positions: str, medium: str):
         p = self.pairs
         for key in (
-            (kind, a, b, ring_class, positions, medium), (kind, a, b, ring_class, positions, "any"),
-            (kind, a, b, ring_class, "", medium), (kind, a, b, ring_class, "", "any"),
-            (kind, a, b, "cyclohexane", "", medium), (kind, a, b, "cyclohexane", "", "any"),
+            (kind, a, b, ring_class, positions, medium),
+            (kind, a, b, ring_class, positions, "any"),
+            (kind, a, b, ring_class, "", medium),
+            (kind, a, b, ring_class, "", "any"),
+            (kind, a, b, "cyclohexane", "", medium),
+            (kind, a, b, "cyclohexane", "", "any"),
         ):
             if key in p:
                 return p[key]

@@ -27,8 +27,17 @@ class SubstituentResult:
     source_ref: str = ""
     axial_in_chair: tuple[bool | None, bool | None] = (None, None)
 
-    COLUMNS = ("ring_id", "ring_atom", "position", "first_atom", "group", "face",
-               "axial_fraction", "a_value_kjmol", "a_value_source")
+    COLUMNS = (
+        "ring_id",
+        "ring_atom",
+        "position",
+        "first_atom",
+        "group",
+        "face",
+        "axial_fraction",
+        "a_value_kjmol",
+        "a_value_source",
+    )
 
     def to_dict(self) -> dict:
         return {k: getattr(self, k) for k in self.COLUMNS}
@@ -77,10 +86,25 @@ class RingResult:
 
     #: Columns written to the `rings` table, in order.
     COLUMNS = (
-        "ring_id", "ring_atoms", "ring_class", "topology", "fusion", "n_planar_ring_atoms",
-        "stereo_status", "dG_flip_kjmol", "dG_flip_min_kjmol", "dG_flip_max_kjmol",
-        "major_chair_fraction", "twist_boat_fraction", "barrier_kjmol", "flip_rate_per_s",
-        "flip_half_life_s", "lock_class", "lock_reason", "value_source", "uncertainty_kjmol",
+        "ring_id",
+        "ring_atoms",
+        "ring_class",
+        "topology",
+        "fusion",
+        "n_planar_ring_atoms",
+        "stereo_status",
+        "dG_flip_kjmol",
+        "dG_flip_min_kjmol",
+        "dG_flip_max_kjmol",
+        "major_chair_fraction",
+        "twist_boat_fraction",
+        "barrier_kjmol",
+        "flip_rate_per_s",
+        "flip_half_life_s",
+        "lock_class",
+        "lock_reason",
+        "value_source",
+        "uncertainty_kjmol",
     )
 
     @property
@@ -111,9 +135,16 @@ class MoleculeResult:
 
     #: Molecule-level columns (besides mol_id / input_file / input_row).
     COLUMNS = (
-        "n_sat6_rings", "n_locked_rings", "locked_scaffold", "max_dG_flip_kjmol",
-        "min_dG_flip_kjmol", "max_barrier_kjmol", "min_barrier_kjmol",
-        "axial_strain_kjmol", "n_axial_major", "n_stereo_undefined_rings",
+        "n_sat6_rings",
+        "n_locked_rings",
+        "locked_scaffold",
+        "max_dG_flip_kjmol",
+        "min_dG_flip_kjmol",
+        "max_barrier_kjmol",
+        "min_barrier_kjmol",
+        "axial_strain_kjmol",
+        "n_axial_major",
+        "n_stereo_undefined_rings",
     )
 
     @property
@@ -162,9 +193,7 @@ class MoleculeResult:
     def n_axial_major(self) -> float:
         if not self.rings:
             return math.nan
-        return float(
-            sum(s.axial_fraction or 0.0 for r in self.rings for s in r.substituents)
-        )
+        return float(sum(s.axial_fraction or 0.0 for r in self.rings for s in r.substituents))
 
     @property
     def n_stereo_undefined_rings(self) -> int:

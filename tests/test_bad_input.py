@@ -11,14 +11,17 @@ import libconf
 from libconf import InputError
 
 
-@pytest.mark.parametrize("smiles,expect", [
-    ("C1CC(", "parse error at position"),
-    ("C1CCCCC", "ring-closure digit is never closed"),
-    ("CN(C)(C)(C)C", "valence error on N2"),
-    ("c1cccc1", "cannot be kekulized"),
-    ("", "empty molecule"),
-    ("   ", "empty molecule"),
-])
+@pytest.mark.parametrize(
+    "smiles,expect",
+    [
+        ("C1CC(", "parse error at position"),
+        ("C1CCCCC", "ring-closure digit is never closed"),
+        ("CN(C)(C)(C)C", "valence error on N2"),
+        ("c1cccc1", "cannot be kekulized"),
+        ("", "empty molecule"),
+        ("   ", "empty molecule"),
+    ],
+)
 def test_bad_smiles_raise_input_error_with_reason(smiles, expect):
     with pytest.raises(InputError) as info:
         libconf.analyze(smiles)
@@ -79,8 +82,17 @@ def test_explain_json_uses_table_field_names():
     for col in libconf.results.RingResult.COLUMNS:
         assert col in ring
     sub = ring["substituents"][0]
-    for col in ("ring_id", "ring_atom", "position", "first_atom", "group", "face",
-                "axial_fraction", "a_value_kjmol", "a_value_source"):
+    for col in (
+        "ring_id",
+        "ring_atom",
+        "position",
+        "first_atom",
+        "group",
+        "face",
+        "axial_fraction",
+        "a_value_kjmol",
+        "a_value_source",
+    ):
         assert col in sub
     assert ring["lock_class"] == "anchored"
 

@@ -46,8 +46,11 @@ def _face_3d(mol_h, conf, ring_atoms, k, sub):
     c = pos.mean(axis=0)
     normal = sum(np.cross(pos[i] - c, pos[(i + 1) % 6] - c) for i in range(6))
     ring_set = set(ring_atoms)
-    others = [n.GetIdx() for n in mol_h.GetAtomWithIdx(ring_atoms[k]).GetNeighbors()
-              if n.GetIdx() not in ring_set and n.GetIdx() != sub]
+    others = [
+        n.GetIdx()
+        for n in mol_h.GetAtomWithIdx(ring_atoms[k]).GetNeighbors()
+        if n.GetIdx() not in ring_set and n.GetIdx() != sub
+    ]
     if len(others) != 1:
         return None
     p = lambda i: np.array(list(conf.GetAtomPosition(i)))  # noqa: E731
@@ -67,8 +70,9 @@ def test_faces_agree_with_etkdg_embeddings_of_random_stereoisomers():
     for mol in mols:
         if checked_isomers >= N_ISOMERS:
             break
-        opts = StereoEnumerationOptions(onlyUnassigned=False, maxIsomers=8,
-                                        rand=rng.randrange(1 << 30), unique=True)
+        opts = StereoEnumerationOptions(
+            onlyUnassigned=False, maxIsomers=8, rand=rng.randrange(1 << 30), unique=True
+        )
         for iso in EnumerateStereoisomers(mol, options=opts):
             iso = Chem.MolFromSmiles(Chem.MolToSmiles(iso))  # as a user would give it
             if iso is None:

@@ -136,8 +136,9 @@ def test_beta_d_glucopyranose_all_equatorial_and_anchored(ring_of):
 
 def test_alpha_d_glucopyranose_keeps_its_anomeric_oh_axial(ring_of):
     ring = ring_of("OC[C@H]1O[C@H](O)[C@H](O)[C@@H](O)[C@@H]1O", medium="water")
-    anomeric = [s for s in ring.substituents if s.group == "*O" and s.position in (2, 6)
-                and s.axial_fraction > 0.9]
+    anomeric = [
+        s for s in ring.substituents if s.group == "*O" and s.position in (2, 6) and s.axial_fraction > 0.9
+    ]
     assert len(anomeric) == 1
     assert ring.lock_class == "anchored"
 
@@ -158,16 +159,19 @@ def test_n_methylpiperidine_methyl_is_equatorial(ring_of):
     assert sub.axial_fraction < 0.02
 
 
-@pytest.mark.parametrize("smiles,ring_class,position,kcal,source", [
-    ("CC1CCCCO1", "oxane", 2, 2.86, "Eliel et al. JACS 1982 (memory)"),
-    ("CC1CCCOC1", "oxane", 3, 1.43, "Eliel et al. JACS 1982 (memory)"),
-    ("CC1CCOCC1", "oxane", 4, 1.95, "Eliel et al. JACS 1982 (memory)"),
-    ("CC1OCCCO1", "1,3-dioxane", 2, 3.98, "Eliel & Knoeber JACS 1968 (memory)"),
-    ("CC1CCOCO1", "1,3-dioxane", 4, 2.95, "Anteunis et al., acetals 34 (confirmed)"),
-    ("CC1COCOC1", "1,3-dioxane", 5, 0.8, "Eliel & Knoeber JACS 1968 (memory)"),
-    ("CC1SCCCS1", "1,3-dithiane", 2, 1.77, "Eliel & Hutchins JACS 1969 (confirmed)"),
-    ("CC1CSCSC1", "1,3-dithiane", 5, 1.04, "Eliel & Hutchins JACS 1969 (confirmed)"),
-])
+@pytest.mark.parametrize(
+    "smiles,ring_class,position,kcal,source",
+    [
+        ("CC1CCCCO1", "oxane", 2, 2.86, "Eliel et al. JACS 1982 (memory)"),
+        ("CC1CCCOC1", "oxane", 3, 1.43, "Eliel et al. JACS 1982 (memory)"),
+        ("CC1CCOCC1", "oxane", 4, 1.95, "Eliel et al. JACS 1982 (memory)"),
+        ("CC1OCCCO1", "1,3-dioxane", 2, 3.98, "Eliel & Knoeber JACS 1968 (memory)"),
+        ("CC1CCOCO1", "1,3-dioxane", 4, 2.95, "Anteunis et al., acetals 34 (confirmed)"),
+        ("CC1COCOC1", "1,3-dioxane", 5, 0.8, "Eliel & Knoeber JACS 1968 (memory)"),
+        ("CC1SCCCS1", "1,3-dithiane", 2, 1.77, "Eliel & Hutchins JACS 1969 (confirmed)"),
+        ("CC1CSCSC1", "1,3-dithiane", 5, 1.04, "Eliel & Hutchins JACS 1969 (confirmed)"),
+    ],
+)
 def test_methyl_in_heterocycles(ring_of, smiles, ring_class, position, kcal, source):
     ring = ring_of(smiles)
     assert ring.ring_class == ring_class, source

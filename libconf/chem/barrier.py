@@ -17,8 +17,14 @@ R_KJ = 8.314462618e-3
 # Barrier base classes: a carbonyl or lactam ring takes the base of its parent
 # heterocycle, and the trigonal atom enters as its own term.
 BASE_CLASS = {"cyclohexanone": "cyclohexane", "lactam": "piperidine", "lactone": "oxane"}
-ALKYL_CLASSES = {"methyl", "primary_alkyl", "secondary_alkyl", "tertiary_alkyl", "benzylic_methylene",
-                 "hetero_methylene"}
+ALKYL_CLASSES = {
+    "methyl",
+    "primary_alkyl",
+    "secondary_alkyl",
+    "tertiary_alkyl",
+    "benzylic_methylene",
+    "hetero_methylene",
+}
 
 
 @dataclass
@@ -45,8 +51,9 @@ def planar_terms(P: Parameters, ring: Ring, field_name: str) -> list[Contributio
     return out
 
 
-def twist_boat_energy(P: Parameters, ring: Ring, sites: list[Site], temperature: float,
-                      gauche_kjmol: float = 0.0) -> float:
+def twist_boat_energy(
+    P: Parameters, ring: Ring, sites: list[Site], temperature: float, gauche_kjmol: float = 0.0
+) -> float:
     """Twist-boat free energy above a strain-free chair: ring-class dH, planar
     terms, the twist family's entropy, a small share of each group's A-value, and
     the vicinal gauche terms (neighbouring groups stay roughly gauche in a twist)."""
@@ -60,8 +67,9 @@ def twist_boat_energy(P: Parameters, ring: Ring, sites: list[Site], temperature:
     return max(g, 0.0)
 
 
-def barrier_estimate(P: Parameters, ring: Ring, sites: list[Site], dg_flip: float,
-                     n_cis_fusions: int) -> tuple[float, float, list[Contribution]]:
+def barrier_estimate(
+    P: Parameters, ring: Ring, sites: list[Site], dg_flip: float, n_cis_fusions: int
+) -> tuple[float, float, list[Contribution]]:
     """Barrier from the major chair: base + corrections + a share of dG_flip."""
     cls = BASE_CLASS.get(ring.ring_class, ring.ring_class)
     base = P.barriers.get(cls, P.barriers["other"])
@@ -77,14 +85,25 @@ def barrier_estimate(P: Parameters, ring: Ring, sites: list[Site], dg_flip: floa
         atom_is_n = any(h == s.k and el == "N" for h, el in ring.hetero)
         if atom_is_n and s.sub.face == "invertible" and s.sub.group_class in ALKYL_CLASSES:
             row = P.barrier_terms["n_alkyl"]
-            terms.append(Contribution(-1, "n_alkyl", f"N-alkyl ({s.sub.group})", row["energy_kjmol"], row["source"]))
+            terms.append(
+                Contribution(-1, "n_alkyl", f"N-alkyl ({s.sub.group})", row["energy_kjmol"], row["source"])
+            )
         elif s.sub.key in ("*Cl", "*F"):
             row = P.barrier_terms["chloro" if s.sub.key == "*Cl" else "fluoro"]
-            terms.append(Contribution(-1, row["term"], f"{s.k + 1}-{s.name}", row["energy_kjmol"], row["source"]))
+            terms.append(
+                Contribution(-1, row["term"], f"{s.k + 1}-{s.name}", row["energy_kjmol"], row["source"])
+            )
     share = P.constants["barrier_dG_share"]
     if dg_flip:
-        terms.append(Contribution(-1, "dG_share", f"{share:g} x dG_flip", share * dg_flip,
-                                  P.constant_sources["barrier_dG_share"]))
+        terms.append(
+            Contribution(
+                -1,
+                "dG_share",
+                f"{share:g} x dG_flip",
+                share * dg_flip,
+                P.constant_sources["barrier_dG_share"],
+            )
+        )
     for c in terms[1:]:
         row = P.barrier_terms.get(c.rule)
         if row:

@@ -20,7 +20,7 @@ from functools import lru_cache
 from rdkit import Chem
 
 from ..parameters import Parameters
-from .rings import Ring, planar_nitrogen_kind, _is_acceptor
+from .rings import Ring, _is_acceptor, planar_nitrogen_kind
 from .substituents import HALOGENS, Substituent
 
 R_KJ = 8.314462618e-3  # kJ mol-1 K-1
@@ -76,20 +76,33 @@ def anomeric_term(P: Parameters, z: int, medium: str) -> tuple[float, str] | Non
     return P.constants[name], P.constant_sources[name]
 
 
-def context_a_value(P: Parameters, mol: Chem.Mol, ring: Ring, sub: Substituent,
-                    medium: str, temperature: float) -> Site:
+def context_a_value(
+    P: Parameters, mol: Chem.Mol, ring: Ring, sub: Substituent, medium: str, temperature: float
+) -> Site:
     """A-value of one substituent in its ring position (the heart of the table look-up)."""
     k = sub.ring_index
     cls = ring.ring_class
     allylic = _allylic_partner(P, mol, ring, k, set(ring.atoms)) if ring.planar_kinds else None
     rels = tuple((el, ring_distance(h, k)) for h, el in ring.hetero)
     tabulated = (not allylic and P.a_value(sub.key, cls, k + 1, medium) is not None) or (
-        not sub.partner_ring and P.base_a_value(sub.key, medium) is not None)
+        not sub.partner_ring and P.base_a_value(sub.key, medium) is not None
+    )
     group_class = None if tabulated else ensure_group_class(mol, sub)
     c_atom = mol.GetAtomWithIdx(sub.ring_atom).GetAtomicNum() == 6 if rels else True
     a, u, source, ref, name, notes = _a_value_in_context(
-        P, sub.key, cls, k + 1, medium, temperature, sub.partner_ring, rels, c_atom, allylic,
-        sub.first_element, group_class)
+        P,
+        sub.key,
+        cls,
+        k + 1,
+        medium,
+        temperature,
+        sub.partner_ring,
+        rels,
+        c_atom,
+        allylic,
+        sub.first_element,
+        group_class,
+    )
     return Site(sub, a, u, source, ref, name, list(notes))
 
 
@@ -103,19 +116,42 @@ def ensure_group_class(mol: Chem.Mol, sub: Substituent) -> str:
 
 
 @lru_cache(maxsize=100_000)
-def _a_value_in_context(P: Parameters, key: str, cls: str, locant: int, medium: str,
-                        temperature: float, partner_ring: bool, rels: tuple, c_atom: bool,
-                        allylic: str | None, first_element: int, group_class: str | None):
+def _a_value_in_context(
+    P: Parameters,
+    key: str,
+    cls: str,
+    locant: int,
+    medium: str,
+    temperature: float,
+    partner_ring: bool,
+    rels: tuple,
+    c_atom: bool,
+    allylic: str | None,
+    first_element: int,
+    group_class: str | None,
+):
     """(a, u, source, ref, name, notes) for a group in a ring context; memoised, since a
     library repeats the same few hundred group/context combinations."""
     row = None if allylic else P.a_value(key, cls, locant, medium)
     if row is not None:
-        return (row.at(temperature), row.uncertainty_kjmol, "table", row.source, row.name,
-                (f"tabulated for {cls} position {locant}",))
+        return (
+            row.at(temperature),
+            row.uncertainty_kjmol,
+            "table",
+            row.source,
+            row.name,
+            (f"tabulated for {cls} position {locant}",),
+        )
     notes: list[str] = []
     base = None if partner_ring else P.base_a_value(key, medium)
     if base is not None:
-        a, u, source, ref, name = base.at(temperature), base.uncertainty_kjmol, "table", base.source, base.name
+        a, u, source, ref, name = (
+            base.at(temperature),
+            base.uncertainty_kjmol,
+            "table",
+            base.source,
+            base.name,
+        )
     else:
         like = P.group_classes.get(group_class, P.group_classes["other"])
         base = P.base_a_value(like, medium)
@@ -280,12 +316,20 @@ def _state_energy(a_eff: list[float], pair_codes: list[tuple], axial: list) -> f
 def energy_inputs(sites: list[Site], pairs: list[PairTerm]) -> tuple[list[float], list[tuple]]:
     """Per-site A-values (0 for constrained bonds) and pair terms in the form
     `chair_energy` loops over; computed once per ring."""
-    return ([0.0 if s.constrained else s.a for s in sites],
-            [(_KIND_CODE[p.kind], p.i, p.j, p.energy) for p in pairs])
+    return (
+        [0.0 if s.constrained else s.a for s in sites],
+        [(_KIND_CODE[p.kind], p.i, p.j, p.energy) for p in pairs],
+    )
 
 
-def chair_energy(sites: list[Site], faces: list[str | None], pairs: list[PairTerm],
-                 chair: int, rt: float, inputs: tuple | None = None) -> ChairResult:
+def chair_energy(
+    sites: list[Site],
+    faces: list[str | None],
+    pairs: list[PairTerm],
+    chair: int,
+    rt: float,
+    inputs: tuple | None = None,
+) -> ChairResult:
     """Energy of one chair for given faces; invertible N-substituents take both
     positions (nitrogen inversion is fast) and are Boltzmann-summed."""
     flip = chair == 1
@@ -302,8 +346,9 @@ def chair_energy(sites: list[Site], faces: list[str | None], pairs: list[PairTer
                 inv.append(n)
     a_eff, codes = inputs or energy_inputs(sites, pairs)
     if not inv:
-        return ChairResult(_state_energy(a_eff, codes, fixed_axial),
-                           [1.0 if ax else 0.0 for ax in fixed_axial], fixed_axial)
+        return ChairResult(
+            _state_energy(a_eff, codes, fixed_axial), [1.0 if ax else 0.0 for ax in fixed_axial], fixed_axial
+        )
     states = []
     for combo in itertools.product((False, True), repeat=len(inv)):
         axial = list(fixed_axial)
@@ -333,9 +378,17 @@ def chair_terms(sites: list[Site], pairs: list[PairTerm], axial: list) -> list[t
         if ai is None or aj is None:
             continue
         kind = p.kind
-        if (kind == "syn_axial" and ai and aj) or (kind == "gauche" and not (ai and aj)) or (
-            kind == "geminal" and ai and not aj
+        if (
+            (kind == "syn_axial" and ai and aj)
+            or (kind == "gauche" and not (ai and aj))
+            or (kind == "geminal" and ai and not aj)
         ):
-            terms.append((kind, f"{sites[p.i].k + 1}-{sites[p.i].name} / "
-                          f"{sites[p.j].k + 1}-{sites[p.j].name}", p.energy, p.source))
+            terms.append(
+                (
+                    kind,
+                    f"{sites[p.i].k + 1}-{sites[p.i].name} / {sites[p.j].k + 1}-{sites[p.j].name}",
+                    p.energy,
+                    p.source,
+                )
+            )
     return terms

@@ -15,10 +15,13 @@ KNOWN_RING_ELEMENTS = {6, 7, 8, 16, 14}
 ELEMENT = {6: "C", 7: "N", 8: "O", 16: "S", 14: "Si"}
 
 PAIR_CLASSES = {
-    ("N", "N", 3): "piperazine", ("N", "N", 2): "hexahydropyrimidine",
-    ("N", "O", 3): "morpholine", ("N", "O", 2): "1,3-oxazinane",
+    ("N", "N", 3): "piperazine",
+    ("N", "N", 2): "hexahydropyrimidine",
+    ("N", "O", 3): "morpholine",
+    ("N", "O", 2): "1,3-oxazinane",
     ("N", "S", 3): "thiomorpholine",
-    ("O", "O", 2): "1,3-dioxane", ("O", "O", 3): "1,4-dioxane",
+    ("O", "O", 2): "1,3-dioxane",
+    ("O", "O", 3): "1,4-dioxane",
     ("S", "S", 2): "1,3-dithiane",
 }
 SINGLE_CLASSES = {"O": "oxane", "N": "piperidine", "S": "thiane", "Si": "silinane"}
@@ -116,7 +119,11 @@ def _is_acceptor(atom: Chem.Atom, exclude: int) -> str | None:
 
 def planar_nitrogen_kind(mol: Chem.Mol, atom: Chem.Atom) -> str | None:
     """Amide, sulfonamide, aniline-type or nitroso nitrogen: trigonal, no axial bond."""
-    if atom.GetAtomicNum() != 7 or atom.GetFormalCharge() != 0 or atom.GetDegree() + atom.GetTotalNumHs() != 3:
+    if (
+        atom.GetAtomicNum() != 7
+        or atom.GetFormalCharge() != 0
+        or atom.GetDegree() + atom.GetTotalNumHs() != 3
+    ):
         return None
     for nb in atom.GetNeighbors():
         kind = _is_acceptor(nb, atom.GetIdx())
@@ -197,11 +204,18 @@ def describe_ring(view, ring: tuple[int, ...], all_rings) -> Ring:
     planar_kinds = {remap(i): kind for i, kind in planar_kind.items()}
 
     hetero = [(k, ELEMENT.get(z[a], "X")) for k, a in enumerate(ordered) if z[a] != 6]
-    ring_class = classify(hetero, [remap(i) for i in carbonyl],
-                          None if lactam_hetero is None else zs[lactam_hetero])
+    ring_class = classify(
+        hetero, [remap(i) for i in carbonyl], None if lactam_hetero is None else zs[lactam_hetero]
+    )
 
-    r = Ring(atoms=ordered, ring_class=ring_class, topology="isolated",
-             planar=sorted(planar_kinds), planar_kinds=planar_kinds, hetero=hetero)
+    r = Ring(
+        atoms=ordered,
+        ring_class=ring_class,
+        topology="isolated",
+        planar=sorted(planar_kinds),
+        planar_kinds=planar_kinds,
+        hetero=hetero,
+    )
     _topology(view, r, all_rings)
     return r
 
@@ -260,8 +274,7 @@ def _topology(view, r: Ring, all_rings) -> None:
         else:
             kinds.add("bridged")
             kind = {2: "bridge13", 3: "bridge14"}.get(d, "bridge_other")
-        r.bridges.append(Bridge(kind, (ends[0], ends[1]), (partners[0], partners[1]),
-                                len(other), length))
+        r.bridges.append(Bridge(kind, (ends[0], ends[1]), (partners[0], partners[1]), len(other), length))
     for t in ("bridged", "fused", "spiro"):
         if t in kinds:
             r.topology = t

@@ -83,8 +83,10 @@ def group_class(mol: Chem.Mol, first: Chem.Atom, ring_atom: int) -> str:
         if Chem.BondType.DOUBLE in btypes:
             dbl = [b.GetOtherAtom(first) for b in bonds if b.GetBondType() == Chem.BondType.DOUBLE]
             if any(a.GetAtomicNum() in (8, 16) for a in dbl):
-                if any(n.GetAtomicNum() in (7, 8) and b.GetBondType() == Chem.BondType.SINGLE
-                       for n, b in zip(nbrs, bonds)):
+                if any(
+                    n.GetAtomicNum() in (7, 8) and b.GetBondType() == Chem.BondType.SINGLE
+                    for n, b in zip(nbrs, bonds)
+                ):
                     return "carboxyl_derivative"
                 return "acyl"
             return "vinyl"
@@ -101,17 +103,17 @@ def group_class(mol: Chem.Mol, first: Chem.Atom, ring_atom: int) -> str:
         return "methyl"
     if z == 8:
         for n in nbrs:
-            if n.GetAtomicNum() == 6 and any(
-                b.GetBondType() == Chem.BondType.DOUBLE for b in n.GetBonds()
-            ):
+            if n.GetAtomicNum() == 6 and any(b.GetBondType() == Chem.BondType.DOUBLE for b in n.GetBonds()):
                 return "acyloxy"
         return "ether_oxygen"
     if z == 7:
         for n in nbrs:
             if n.GetIsAromatic():
                 return "aryl_nitrogen"
-            if any(b.GetBondType() == Chem.BondType.DOUBLE and b.GetOtherAtom(n).GetIdx() != first.GetIdx()
-                   for b in n.GetBonds()):
+            if any(
+                b.GetBondType() == Chem.BondType.DOUBLE and b.GetOtherAtom(n).GetIdx() != first.GetIdx()
+                for b in n.GetBonds()
+            ):
                 return "amido"
         if first.GetIsAromatic():
             return "aryl_nitrogen"
