@@ -212,26 +212,25 @@ def _pair_row(P: Parameters, kind: str, s: Site, t: Site, ring: Ring, medium: st
     return P.pair(kind, s.sub.key, t.sub.key, ring.ring_class, pos, medium)
 
 
-def syn_axial_energy(P: Parameters, s: Site, t: Site, ring: Ring, medium: str) -> tuple[float, str]:
-    """Energy of a syn-1,3-diaxial pair beyond the two A-values."""
-    row = _pair_row(P, "syn_axial", s, t, ring, medium)
+def _scaled_pair_energy(P: Parameters, kind: str, s: Site, t: Site, ring: Ring, medium: str):
+    """A tabulated pair energy, else scale x sqrt(A_s x A_t) (both A-values positive)."""
+    row = _pair_row(P, kind, s, t, ring, medium)
     if row is not None:
         return row["energy_kjmol"], row["source"]
     if s.a <= 0 or t.a <= 0:
         return 0.0, ""
-    scale = P.constants["syn_axial_scale"]
-    return scale * math.sqrt(s.a * t.a), P.constant_sources["syn_axial_scale"]
+    name = f"{kind}_scale"
+    return P.constants[name] * math.sqrt(s.a * t.a), P.constant_sources[name]
+
+
+def syn_axial_energy(P: Parameters, s: Site, t: Site, ring: Ring, medium: str) -> tuple[float, str]:
+    """Energy of a syn-1,3-diaxial pair beyond the two A-values."""
+    return _scaled_pair_energy(P, "syn_axial", s, t, ring, medium)
 
 
 def gauche_energy(P: Parameters, s: Site, t: Site, ring: Ring, medium: str) -> tuple[float, str]:
     """Vicinal gauche interaction (present in ee and ae, absent in aa)."""
-    row = _pair_row(P, "gauche", s, t, ring, medium)
-    if row is not None:
-        return row["energy_kjmol"], row["source"]
-    if s.a <= 0 or t.a <= 0:
-        return 0.0, ""
-    scale = P.constants["gauche_scale"]
-    return scale * math.sqrt(s.a * t.a), P.constant_sources["gauche_scale"]
+    return _scaled_pair_energy(P, "gauche", s, t, ring, medium)
 
 
 def geminal_correction(P: Parameters, ax: Site, eq: Site, ring: Ring, medium: str) -> tuple[float, str]:
@@ -300,17 +299,19 @@ def _state_energy(a_eff: list[float], pair_codes: list[tuple], axial: list) -> f
             g += a
     for code, i, j, e in pair_codes:
         ai, aj = axial[i], axial[j]
-        if ai is None or aj is None:
-            continue
-        if code == _GAUCHE:
-            if not (ai and aj):
-                g += e
-        elif code == _SYN:
-            if ai and aj:
-                g += e
-        elif ai and not aj:
+        if ai is not None and aj is not None and _applies(code, ai, aj):
             g += e
     return g
+
+
+def _applies(code: int, ai: bool, aj: bool) -> bool:
+    """Whether a pair term is present: syn-axial when both axial, gauche unless both
+    axial (ax/ax is anti), geminal correction when the first group is axial."""
+    if code == _GAUCHE:
+        return not (ai and aj)
+    if code == _SYN:
+        return ai and aj
+    return ai and not aj
 
 
 def energy_inputs(sites: list[Site], pairs: list[PairTerm]) -> tuple[list[float], list[tuple]]:
@@ -375,17 +376,10 @@ def chair_terms(sites: list[Site], pairs: list[PairTerm], axial: list) -> list[t
             terms.append(("a_value", f"{s.k + 1}-{s.name} axial", s.a, s.ref))
     for p in pairs:
         ai, aj = axial[p.i], axial[p.j]
-        if ai is None or aj is None:
-            continue
-        kind = p.kind
-        if (
-            (kind == "syn_axial" and ai and aj)
-            or (kind == "gauche" and not (ai and aj))
-            or (kind == "geminal" and ai and not aj)
-        ):
+        if ai is not None and aj is not None and _applies(_KIND_CODE[p.kind], ai, aj):
             terms.append(
                 (
-                    kind,
+                    p.kind,
                     f"{sites[p.i].k + 1}-{sites[p.i].name} / {sites[p.j].k + 1}-{sites[p.j].name}",
                     p.energy,
                     p.source,
