@@ -372,7 +372,10 @@ def analyze_ring(
         res.chair_energies_kjmol = (g0, g1)
         res.major_chair = major
         chair_prob = {0: w[0] / (w[0] + w[1]), 1: w[1] / (w[0] + w[1])}
-        barrier, ub, terms = barrier_estimate(P, ring, model.sites, res.dG_flip_kjmol, best.n_cis)
+        # The flip runs from the major chair to the first twist-boat: when the minor chair
+        # lies above the twist-boat, only the climb to the twist-boat raises the barrier.
+        dg_path = min(res.dG_flip_kjmol, max(0.0, model.twist_boat - gmaj))
+        barrier, ub, terms = barrier_estimate(P, ring, model.sites, dg_path, best.n_cis)
         res.barrier_kjmol = barrier
         res.barrier_terms = terms
         res.flip_rate_per_s = eyring_rate(barrier, temperature)

@@ -99,7 +99,7 @@ def barrier_estimate(
             Contribution(
                 -1,
                 "dG_share",
-                f"{share:g} x dG_flip",
+                f"{share:g} x {dg_flip:.1f} kJ/mol (dG_flip, at most the climb to the twist-boat)",
                 share * dg_flip,
                 P.constant_sources["barrier_dG_share"],
             )
