@@ -4,6 +4,6 @@
 and scipy; import it only where GFN2-xTB is wanted.
 """
 
-from .chairs import TWIST, ChairConformer, ChairPair, both_chairs, chair_label, placement
+from .chairs import TWIST, ChairConformer, ChairPair, both_chairs, chair_label, force_flip, placement
 
-__all__ = ["TWIST", "ChairConformer", "ChairPair", "both_chairs", "chair_label", "placement"]
+__all__ = ["TWIST", "ChairConformer", "ChairPair", "both_chairs", "chair_label", "force_flip", "placement"]

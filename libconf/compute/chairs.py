@@ -139,6 +139,7 @@ class ChairPair:
     n_embedded: int = 0
     n_twist: int = 0  # embeddings that ended off-chair after MMFF94
     n_forced: int = 0  # conformers kept from a forced flip
+    n_rotamer_starts: int = 0  # rotor-scan starts that stayed in their chair
     notes: list[str] = field(default_factory=list)
 
     def best(self, chair: int) -> ChairConformer:
@@ -277,6 +278,68 @@ def _distinct(confs: list[ChairConformer], keep: int, tol_kj: float = 0.01) -> l
     return out
 
 
+def _rotor_bonds(mh: Chem.Mol, ring: tuple[int, ...]) -> list[tuple[int, int, list[int]]]:
+    """(ring atom, first atom, atoms that move) for each acyclic ring-substituent bond worth turning."""
+    ring_set = set(ring)
+    out = []
+    for a in ring:
+        for x in mh.GetAtomWithIdx(a).GetNeighbors():
+            b = mh.GetBondBetweenAtoms(a, x.GetIdx())
+            if x.GetIdx() in ring_set or b.IsInRing() or x.GetDegree() < 2:
+                continue
+            side, stack = {x.GetIdx()}, [x.GetIdx()]
+            while stack:
+                for y in mh.GetAtomWithIdx(stack.pop()).GetNeighbors():
+                    if y.GetIdx() != a and y.GetIdx() not in side:
+                        side.add(y.GetIdx())
+                        stack.append(y.GetIdx())
+            out.append((a, x.GetIdx(), sorted(side)))
+    return out
+
+
+def _turned(pos: np.ndarray, axis_from: int, axis_to: int, moving: list[int], degrees: float) -> np.ndarray:
+    """Positions with ``moving`` rotated rigidly about the bond axis_from -> axis_to."""
+    o = pos[axis_from]
+    u = pos[axis_to] - o
+    u = u / np.linalg.norm(u)
+    t = np.radians(degrees)
+    k = np.array([[0, -u[2], u[1]], [u[2], 0, -u[0]], [-u[1], u[0], 0]])
+    rot = np.eye(3) + np.sin(t) * k + (1 - np.cos(t)) * (k @ k)  # Rodrigues
+    new = pos.copy()
+    new[moving] = (pos[moving] - o) @ rot.T + o
+    return new
+
+
+def _flip(
+    mh, props, ring, src: ChairConformer, k_torsion: float, min_torsion: float
+) -> ChairConformer | None:
+    cid = mh.AddConformer(Chem.Conformer(mh.GetNumAtoms()), assignId=True)
+    conf = mh.GetConformer(cid)
+    for i, q in enumerate(src.positions):
+        conf.SetAtomPosition(i, q.tolist())
+    _force_flip(mh, props, cid, ring, k_torsion)
+    e = _relax(mh, props, cid)
+    rec = _record(mh, ring, cid, e, True, min_torsion)
+    mh.RemoveConformer(cid)
+    return rec
+
+
+def force_flip(
+    pair: ChairPair, conformer: ChairConformer, k_torsion: float = 200.0, min_torsion: float = 40.0
+) -> ChairConformer | None:
+    """The other chair, forced from ``conformer``: MMFF94 with the ring torsions held at
+    the mirror-image pattern, then released and re-optimised freely.
+
+    Returns the released minimum if its ring is a chair (the flipped one, normally),
+    None if it relaxed off-chair.
+    """
+    mh = Chem.Mol(pair.mol)
+    props = AllChem.MMFFGetMoleculeProperties(mh)
+    if props is None:
+        raise ValueError("MMFF94 has no parameters for this molecule")
+    return _flip(mh, props, pair.ring, conformer, k_torsion, min_torsion)
+
+
 def both_chairs(
     mol: Chem.Mol,
     ring_atoms: tuple[int, ...] | list[int],
@@ -286,10 +349,14 @@ def both_chairs(
     min_torsion: float = 40.0,
     max_forced: int = 4,
     k_torsion: float = 200.0,
+    rotor_step: float | None = 30.0,
 ) -> ChairPair:
     """Build both chairs of the ring ``ring_atoms`` (in ring order) of ``mol``.
 
-    Returns up to ``keep`` distinct MMFF94 minima per chair, lowest first.
+    Returns up to ``keep`` distinct MMFF94 minima per chair, lowest first. A chair with
+    fewer than two distinct minima from sampling is also reached by forced flips from
+    the other chair. Each acyclic ring-substituent bond is then turned in steps of
+    ``rotor_step`` degrees from the best conformers of each chair (None: no scan).
     ``seed`` fixes the ETKDG embedding, so a call is reproducible.
 
     >>> from rdkit import Chem
@@ -313,8 +380,9 @@ def both_chairs(
     props = AllChem.MMFFGetMoleculeProperties(mh)
     if props is None:
         raise ValueError("MMFF94 has no parameters for this molecule")
-    pair = ChairPair(mol=Chem.Mol(mh, confId=-1), ring=ring, chairs={0: [], 1: []}, faces={},
-                     n_embedded=len(cids))
+    pair = ChairPair(
+        mol=Chem.Mol(mh, confId=-1), ring=ring, chairs={0: [], 1: []}, faces={}, n_embedded=len(cids)
+    )
     pair.mol.RemoveAllConformers()
 
     found: dict[int, list[ChairConformer]] = {0: [], 1: []}
@@ -335,18 +403,30 @@ def both_chairs(
             continue
         sources = _distinct(found[1 - target], max_forced)
         for src in sources:
-            cid = mh.AddConformer(Chem.Conformer(mh.GetConformer(cids[0])), assignId=True)
-            conf = mh.GetConformer(cid)
-            for i, p in enumerate(src.positions):
-                conf.SetAtomPosition(i, p.tolist())
-            _force_flip(mh, props, cid, ring, k_torsion)
-            e = _relax(mh, props, cid)
-            rec = _record(mh, ring, cid, e, True, min_torsion)
+            rec = _flip(mh, props, ring, src, k_torsion, min_torsion)
             if rec is not None and rec.chair == target:
                 found[target].append(rec)
                 pair.n_forced += 1
             else:
                 pair.notes.append(f"forced chair {target} from conformer of chair {1 - target} did not hold")
+
+    # ETKDG leaves rotamers of the ring-substituent bonds to chance: turn each one
+    # systematically from the best conformers of each chair and re-optimise
+    rotors = _rotor_bonds(mh, ring) if rotor_step else []
+    for c in (0, 1):
+        for src in _distinct(found[c], keep) if rotors else []:
+            for a, x, moving in rotors:
+                for deg in np.arange(rotor_step, 360.0, rotor_step):
+                    cid = mh.AddConformer(Chem.Conformer(mh.GetConformer(cids[0])), assignId=True)
+                    conf = mh.GetConformer(cid)
+                    for i, q in enumerate(_turned(src.positions, a, x, moving, float(deg))):
+                        conf.SetAtomPosition(i, q.tolist())
+                    e = _relax(mh, props, cid)
+                    rec = _record(mh, ring, cid, e, src.forced, min_torsion)
+                    mh.RemoveConformer(cid)
+                    if rec is not None and rec.chair == c:
+                        found[c].append(rec)
+                        pair.n_rotamer_starts += 1
 
     for c in (0, 1):
         pair.chairs[c] = _distinct(found[c], keep)

@@ -59,10 +59,13 @@ class _Surface:
         return float(self.res.get("energy")), np.asarray(self.res.get("gradient")).ravel().copy()
 
 
-def single_point(numbers, positions_ang, charge: int = 0, solvent: str | None = None) -> float:
-    """GFN2-xTB energy in hartree at the given geometry (angstrom)."""
+def single_point(
+    numbers, positions_ang, charge: int = 0, solvent: str | None = None
+) -> tuple[float, np.ndarray]:
+    """GFN2-xTB energy (hartree) and gradient ((n, 3), hartree/bohr) at a geometry in angstrom."""
     x = np.asarray(positions_ang, dtype=float) / BOHR_ANGSTROM
-    return _Surface(np.asarray(numbers), x, charge, solvent)(x.ravel())[0]
+    e, g = _Surface(np.asarray(numbers), x, charge, solvent)(x.ravel())
+    return e, g.reshape(-1, 3)
 
 
 def optimise(
@@ -81,8 +84,13 @@ def optimise(
     x, steps = x0, 0
     # L-BFGS can stop on its energy criterion before the gradient one: restart (fresh history) then
     for _ in range(3):
-        out = minimize(surf, x, jac=True, method="L-BFGS-B",
-                       options={"gtol": gtol, "ftol": 1e-15, "maxiter": max_steps, "maxcor": 30})
+        out = minimize(
+            surf,
+            x,
+            jac=True,
+            method="L-BFGS-B",
+            options={"gtol": gtol, "ftol": 1e-15, "maxiter": max_steps, "maxcor": 30},
+        )
         x, steps = out.x, steps + int(out.nit)
         e, g = surf(x)
         gmax = float(np.max(np.abs(g)))
@@ -102,7 +110,7 @@ class ChairOptimum:
 
     @property
     def usable(self) -> bool:
-        return (self.result.converged and self.chair_after == self.start.chair)
+        return self.result.converged and self.chair_after == self.start.chair
 
 
 @dataclass(frozen=True)
@@ -123,8 +131,9 @@ def _charge(mol: Chem.Mol) -> int:
     return sum(a.GetFormalCharge() for a in mol.GetAtoms())
 
 
-def reoptimise_chair(pair: ChairPair, chair: int, atom: int, n_best: int = 3, solvent: str | None = None,
-                     gtol: float = 1e-3) -> list[ChairOptimum]:
+def reoptimise_chair(
+    pair: ChairPair, chair: int, atom: int, n_best: int = 3, solvent: str | None = None, gtol: float = 1e-3
+) -> list[ChairOptimum]:
     """GFN2-xTB re-optimisation of the ``n_best`` lowest MMFF94 conformers of one chair."""
     numbers = np.array([a.GetAtomicNum() for a in pair.mol.GetAtoms()])
     charge = _charge(pair.mol)
@@ -138,8 +147,9 @@ def reoptimise_chair(pair: ChairPair, chair: int, atom: int, n_best: int = 3, so
     return out
 
 
-def axial_minus_equatorial(pair: ChairPair, atom: int, n_best: int = 3, solvent: str | None = None,
-                           gtol: float = 1e-3) -> AxialEquatorial:
+def axial_minus_equatorial(
+    pair: ChairPair, atom: int, n_best: int = 3, solvent: str | None = None, gtol: float = 1e-3
+) -> AxialEquatorial:
     """GFN2-xTB ΔE = E(axial chair) - E(equatorial chair) for exocyclic ``atom``, kJ/mol.
 
     Each chair's energy is the lowest over its ``n_best`` re-optimised conformers that
