@@ -114,14 +114,16 @@ class TableBuffer:
         self.name = name
         self.schema = SCHEMAS[name]
         self.columns: dict[str, list] = {f.name: [] for f in self.schema}
+        # (name, list) pairs read once: pyarrow builds a new list on every `schema.names`
+        self._value_columns = [(n, self.columns[n]) for n in self.schema.names[3:]]
+        self._key_columns = [self.columns[n] for n in self.schema.names[:3]]
 
     def append(self, key: tuple[str, str, int], values: dict) -> None:
-        cols = self.columns
-        cols["mol_id"].append(key[0])
-        cols["input_file"].append(key[1])
-        cols["input_row"].append(key[2])
-        for name in self.schema.names[3:]:
-            cols[name].append(values.get(name))
+        for col, v in zip(self._key_columns, key):
+            col.append(v)
+        get = values.get
+        for name, col in self._value_columns:
+            col.append(get(name))
 
     def __len__(self) -> int:
         return len(self.columns["mol_id"])

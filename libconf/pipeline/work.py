@@ -85,6 +85,9 @@ def _in_worker_process() -> bool:
     return multiprocessing.parent_process() is not None
 
 
+_handler_installed = False
+
+
 @contextmanager
 def time_guard(seconds: float | None):
     """Interrupt the block after ``seconds`` of wall time (main thread only).
@@ -102,11 +105,14 @@ def time_guard(seconds: float | None):
     if not usable:
         yield
         return
+    global _handler_installed
     watchdog = _in_worker_process()
-    # The handler is installed once and left in place (re-installing it per record
-    # costs more than the analysis of a ring-free molecule); the timer is per record.
-    if signal.getsignal(signal.SIGALRM) is not _on_alarm:
+    # The handler is installed once per process and left in place (re-installing or
+    # even querying it per record costs more than analysing a ring-free molecule);
+    # only the timer is set per record.
+    if not _handler_installed:
         signal.signal(signal.SIGALRM, _on_alarm)
+        _handler_installed = True
     signal.setitimer(signal.ITIMER_REAL, seconds)
     if watchdog:
         _watchdog.arm(seconds)
