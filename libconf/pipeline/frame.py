@@ -4,6 +4,12 @@ For engines that bring their own parallelism (Dask ``map_partitions``, Spark
 ``mapInPandas``): it runs in the calling process, one row out per row in, same index,
 so a partition keeps its length and order. Rows that cannot be analysed keep their
 place, with the molecule columns null and ``error`` / ``error_stage`` saying why.
+
+The output has one fixed schema whatever the partition holds (all valid, all invalid,
+or no rows at all): :func:`frame_meta` is an empty frame of it (Dask's ``meta=``),
+:func:`frame_schema` the same as an Arrow schema and :func:`frame_ddl` as a DDL string
+(Spark's ``mapInPandas`` schema). Strings are ``string[pyarrow]``, counts ``Int32``,
+flags ``boolean`` (nullable, so an error row keeps the dtype), energies ``float64``.
 """
 
 from __future__ import annotations
@@ -11,6 +17,7 @@ from __future__ import annotations
 from collections.abc import Callable
 
 import pandas as pd
+import pyarrow as pa
 
 from libconf.pipeline.failures import UsageError
 from libconf.pipeline.readers import Record, truncate_raw
@@ -19,6 +26,38 @@ from libconf.pipeline.tables import MOLECULE_COLUMNS, SCHEMAS
 from libconf.pipeline.work import AnalysisOptions, analyse_chunk
 
 FRAME_COLUMNS = ("mol_id", *MOLECULE_COLUMNS, "error", "error_stage")
+
+_STRING = pd.StringDtype("pyarrow")  # what Dask turns object columns into anyway
+_PANDAS_TYPE = {"string": _STRING, "int32": "Int32", "bool": "boolean", "double": "float64"}
+_DDL_TYPE = {"string": "string", "int32": "int", "bool": "boolean", "double": "double"}
+
+
+def frame_schema() -> pa.Schema:
+    """Arrow schema of what :func:`annotate_frame` returns (every column nullable)."""
+    molecules = SCHEMAS["molecules"]
+    fields = [pa.field("mol_id", pa.string())]
+    fields += [pa.field(name, molecules.field(name).type) for name in MOLECULE_COLUMNS]
+    fields += [pa.field("error", pa.string()), pa.field("error_stage", pa.string())]
+    return pa.schema(fields)
+
+
+def frame_dtypes() -> dict[str, object]:
+    """Column name -> pandas dtype of what :func:`annotate_frame` returns."""
+    return {f.name: _PANDAS_TYPE[str(f.type)] for f in frame_schema()}
+
+
+def frame_meta() -> pd.DataFrame:
+    """An empty frame with the output's columns and dtypes (``meta=`` for Dask).
+
+    >>> list(frame_meta().columns[:3])
+    ['mol_id', 'smiles', 'n_heavy_atoms']
+    """
+    return _typed(pd.DataFrame({name: [] for name in FRAME_COLUMNS}))
+
+
+def frame_ddl() -> str:
+    """The output schema as a DDL string, e.g. for Spark's ``mapInPandas(schema=...)``."""
+    return ", ".join(f"{f.name} {_DDL_TYPE[str(f.type)]}" for f in frame_schema())
 
 
 def annotate_frame(
@@ -81,16 +120,12 @@ def annotate_frame(
 
 
 def _typed(out: pd.DataFrame) -> pd.DataFrame:
-    """Nullable pandas dtypes matching the Parquet schema (ints stay ints with gaps)."""
-    schema = SCHEMAS["molecules"]
-    for name in MOLECULE_COLUMNS:
-        t = schema.field(name).type
-        if str(t) == "int32":
-            out[name] = out[name].astype("Int32")
-        elif str(t) == "bool":
-            out[name] = out[name].astype("boolean")
-        elif str(t) == "double":
+    """Cast every column to its fixed dtype (nullable ints and flags stay typed with gaps)."""
+    for name, dtype in frame_dtypes().items():
+        if dtype == "float64":
             out[name] = pd.to_numeric(out[name], errors="coerce").astype("float64")
+        elif dtype is _STRING:
+            out[name] = out[name].astype(object).where(out[name].notna(), None).astype(_STRING)
         else:
-            out[name] = out[name].astype(object)
+            out[name] = out[name].astype(dtype)
     return out
