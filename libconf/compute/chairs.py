@@ -140,6 +140,7 @@ class ChairPair:
     n_twist: int = 0  # embeddings that ended off-chair after MMFF94
     n_forced: int = 0  # conformers kept from a forced flip
     n_rotamer_starts: int = 0  # rotor-scan starts that stayed in their chair
+    n_side_ring_flips: int = 0  # flips of another six-membered ring that kept this one's chair
     notes: list[str] = field(default_factory=list)
 
     def best(self, chair: int) -> ChairConformer:
@@ -310,18 +311,32 @@ def _turned(pos: np.ndarray, axis_from: int, axis_to: int, moving: list[int], de
     return new
 
 
-def _flip(
-    mh, props, ring, src: ChairConformer, k_torsion: float, min_torsion: float
-) -> ChairConformer | None:
+def _flip(mh, props, flip_ring, ring, src: ChairConformer, k_torsion: float, min_torsion: float):
+    """Flip ``flip_ring`` of ``src`` (forced, then released); classify ``ring`` afterwards."""
     cid = mh.AddConformer(Chem.Conformer(mh.GetNumAtoms()), assignId=True)
     conf = mh.GetConformer(cid)
     for i, q in enumerate(src.positions):
         conf.SetAtomPosition(i, q.tolist())
-    _force_flip(mh, props, cid, ring, k_torsion)
+    _force_flip(mh, props, cid, flip_ring, k_torsion)
     e = _relax(mh, props, cid)
     rec = _record(mh, ring, cid, e, True, min_torsion)
     mh.RemoveConformer(cid)
     return rec
+
+
+def _other_six_rings(mh: Chem.Mol, ring: tuple[int, ...]) -> list[tuple[int, ...]]:
+    """Saturated six-membered rings sharing no atom with ``ring``, in ring order."""
+    out = []
+    ring_set = set(ring)
+    for r in mh.GetRingInfo().AtomRings():
+        if len(r) != 6 or ring_set & set(r):
+            continue
+        try:
+            _check_ring(mh, tuple(r))
+        except ValueError:
+            continue
+        out.append(tuple(r))
+    return out
 
 
 def force_flip(
@@ -337,7 +352,7 @@ def force_flip(
     props = AllChem.MMFFGetMoleculeProperties(mh)
     if props is None:
         raise ValueError("MMFF94 has no parameters for this molecule")
-    return _flip(mh, props, pair.ring, conformer, k_torsion, min_torsion)
+    return _flip(mh, props, pair.ring, pair.ring, conformer, k_torsion, min_torsion)
 
 
 def both_chairs(
@@ -386,29 +401,46 @@ def both_chairs(
     pair.mol.RemoveAllConformers()
 
     found: dict[int, list[ChairConformer]] = {0: [], 1: []}
+
+    def on_faces(rec: ChairConformer | None, how: str) -> bool:
+        # a forced flip through the flat ring can push a ring CH through itself (inverting
+        # the atom): such a structure is a different stereoisomer, not a chair of this one
+        if rec is None:
+            return False
+        geo = _conformer_faces(rec.positions, ring, mh)
+        if any(geo.get(a) != f for a, f in faces.items()):
+            pair.notes.append(f"{how}: a substituent off its configured face; dropped")
+            return False
+        return True
+
     for cid in cids:
         e = _relax(mh, props, cid)
         rec = _record(mh, ring, cid, e, False, min_torsion)
         if rec is None:
             pair.n_twist += 1
-            continue
-        geo = _conformer_faces(rec.positions, ring, mh)
-        if any(geo.get(a) != f for a, f in faces.items()):
-            pair.notes.append(f"conformer {cid}: a substituent off its configured face; dropped")
-            continue
-        found[rec.chair].append(rec)
+        elif on_faces(rec, f"embedding {cid}"):
+            found[rec.chair].append(rec)
 
     for target in (0, 1):
         if len(_distinct(found[target], keep)) >= min(2, keep):
             continue
-        sources = _distinct(found[1 - target], max_forced)
-        for src in sources:
-            rec = _flip(mh, props, ring, src, k_torsion, min_torsion)
-            if rec is not None and rec.chair == target:
+        for src in _distinct(found[1 - target], max_forced):
+            rec = _flip(mh, props, ring, ring, src, k_torsion, min_torsion)
+            if rec is not None and rec.chair == target and on_faces(rec, "forced flip"):
                 found[target].append(rec)
                 pair.n_forced += 1
             else:
-                pair.notes.append(f"forced chair {target} from conformer of chair {1 - target} did not hold")
+                pair.notes.append(f"forced chair {target} from chair {1 - target} did not hold")
+
+    # other saturated six-membered rings (a cyclohexyl substituent) have two chairs of their
+    # own, which ETKDG leaves to chance: flip each from the best conformers of both chairs
+    for other in _other_six_rings(mh, ring):
+        for c in (0, 1):
+            for src in _distinct(found[c], keep):
+                rec = _flip(mh, props, other, ring, src, k_torsion, min_torsion)
+                if rec is not None and rec.chair == c and on_faces(rec, "side-ring flip"):
+                    found[c].append(rec)
+                    pair.n_side_ring_flips += 1
 
     # ETKDG leaves rotamers of the ring-substituent bonds to chance: turn each one
     # systematically from the best conformers of each chair and re-optimise
@@ -417,14 +449,14 @@ def both_chairs(
         for src in _distinct(found[c], keep) if rotors else []:
             for a, x, moving in rotors:
                 for deg in np.arange(rotor_step, 360.0, rotor_step):
-                    cid = mh.AddConformer(Chem.Conformer(mh.GetConformer(cids[0])), assignId=True)
+                    cid = mh.AddConformer(Chem.Conformer(mh.GetNumAtoms()), assignId=True)
                     conf = mh.GetConformer(cid)
                     for i, q in enumerate(_turned(src.positions, a, x, moving, float(deg))):
                         conf.SetAtomPosition(i, q.tolist())
                     e = _relax(mh, props, cid)
                     rec = _record(mh, ring, cid, e, src.forced, min_torsion)
                     mh.RemoveConformer(cid)
-                    if rec is not None and rec.chair == c:
+                    if rec is not None and rec.chair == c and on_faces(rec, "rotor scan"):
                         found[c].append(rec)
                         pair.n_rotamer_starts += 1
 

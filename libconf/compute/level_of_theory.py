@@ -21,7 +21,7 @@ import sys
 import time
 from pathlib import Path
 
-GENERATOR = "libconf.compute.level_of_theory 1"
+GENERATOR = "libconf.compute.level_of_theory 2"  # bump when a change alters the numbers
 GROUPS = Path(__file__).resolve().parents[2] / "datasets" / "computed" / "level_of_theory_groups.csv"
 SEED = 20261201
 N_CONFORMERS = 50
@@ -55,9 +55,9 @@ COLUMNS = [
 ]
 
 
-def settings_string() -> str:
+def settings_string(seed: int = SEED) -> str:
     return (
-        f"seed={SEED};n_conformers={N_CONFORMERS};keep={KEEP};rotor_step={ROTOR_STEP};n_best={N_BEST};"
+        f"generator={GENERATOR.split()[-1]};seed={seed};n_conformers={N_CONFORMERS};keep={KEEP};rotor_step={ROTOR_STEP};n_best={N_BEST};"
         f"gtol={GTOL};solvent=alpb-{SOLVENT}"
     )
 
@@ -88,7 +88,7 @@ def _fmt(x: float | None) -> str:
     return "" if x is None else f"{x:.2f}"
 
 
-def compute_group(row: dict) -> dict:
+def compute_group(row: dict, seed: int = SEED) -> dict:
     """One output row for one group (runs in a worker process)."""
     os.environ["OMP_NUM_THREADS"] = "1"
     from .chairs import both_chairs
@@ -99,11 +99,11 @@ def compute_group(row: dict) -> dict:
         k: row.get(k, "")
         for k in ("group", "name", "ref_row", "exp_kjmol", "exp_range_kjmol", "exp_water_kjmol")
     }
-    out.update(exp_source=row["source"], exp_flag=row["flag"], settings=settings_string())
+    out.update(exp_source=row["source"], exp_flag=row["flag"], settings=settings_string(seed))
     notes = []
     try:
         mol, ring, sub = cyclohexyl(row["group"])
-        pair = both_chairs(mol, ring, n_conformers=N_CONFORMERS, seed=SEED, keep=KEEP, rotor_step=ROTOR_STEP)
+        pair = both_chairs(mol, ring, n_conformers=N_CONFORMERS, seed=seed, keep=KEEP, rotor_step=ROTOR_STEP)
         ax = pair.axial_chair(sub)
         out.update(
             n_axial_conformers=len(pair.chairs[ax]),
@@ -147,14 +147,14 @@ def _read(path: Path) -> list[dict]:
         return list(csv.DictReader(fh))
 
 
-def run(out_path: Path, jobs: int = 2, only: list[str] | None = None) -> None:
+def run(out_path: Path, jobs: int = 2, only: list[str] | None = None, seed: int = SEED) -> None:
     from joblib import Parallel, delayed
 
     groups = _read(GROUPS)
     if only:
         groups = [g for g in groups if g["group"] in only or g["name"] in only]
     done_rows = _read(out_path)
-    other = {r["settings"] for r in done_rows} - {settings_string()}
+    other = {r["settings"] for r in done_rows} - {settings_string(seed)}
     if other:
         sys.exit(f"{out_path} was made with other settings ({sorted(other)}); write to another file")
     done = {r["group"] for r in done_rows}
@@ -174,7 +174,7 @@ def run(out_path: Path, jobs: int = 2, only: list[str] | None = None) -> None:
             w.writeheader()
             fh.flush()
         results = Parallel(n_jobs=jobs, return_as="generator_unordered")(
-            delayed(compute_group)(g) for g in todo
+            delayed(compute_group)(g, seed) for g in todo
         )
         for i, row in enumerate(results, 1):
             w.writerow(row)
@@ -225,10 +225,11 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--out", type=Path, default=Path("datasets/computed/level_of_theory.csv"))
     ap.add_argument("--jobs", type=int, default=2, help="worker processes (default 2)")
     ap.add_argument("--only", nargs="*", help="group SMILES or names to compute (default: all)")
+    ap.add_argument("--seed", type=int, default=SEED, help=f"ETKDG seed (default {SEED})")
     ap.add_argument("--summary", action="store_true", help="print the comparison with experiment and stop")
     a = ap.parse_args(argv)
     if not a.summary:
-        run(a.out, a.jobs, a.only)
+        run(a.out, a.jobs, a.only, a.seed)
     for col, s in summary(a.out).items():
         print(
             f"{col:<26} n={s['n']:>2}  MAE {s['mae_kjmol']:.2f} kJ/mol  mean signed {s['mean_signed_kjmol']:+.2f}"
