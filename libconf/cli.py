@@ -62,6 +62,7 @@ def build_parser() -> argparse.ArgumentParser:
     )
     ex.add_argument("smiles", metavar="SMILES", help="the molecule (quote it in the shell)")
     ex.add_argument("--json", action="store_true", help="JSON with the output-table field names")
+    ex.add_argument("--plot", metavar="FILE.png", help="also draw both chairs' energies and their terms")
     _add_conditions(ex)
     try:
         from .pipeline import cli as pipeline_cli
@@ -69,6 +70,14 @@ def build_parser() -> argparse.ArgumentParser:
         pipeline_cli = None
     if pipeline_cli is not None:
         pipeline_cli.add_annotate_parser(sub)
+    rep = sub.add_parser(
+        "report",
+        help="one self-contained HTML page summarising a finished run",
+        description="Summarise an annotate output directory as one HTML file "
+        "(plots and depictions embedded; nothing is fetched).",
+    )
+    rep.add_argument("run_dir", metavar="DIR", help="the --out directory of `libconf annotate`")
+    rep.add_argument("-o", "--output", metavar="FILE.html", help="where to write (default: DIR/report.html)")
     return parser
 
 
@@ -82,6 +91,14 @@ def run_explain(args) -> int:
         print(json.dumps(_clean(res.to_dict()), indent=2))
     else:
         print(explain_text(res))
+    if args.plot:
+        from .explain import plot_chairs
+
+        try:
+            plot_chairs(res, args.plot)
+        except (OSError, ValueError) as exc:
+            print(f"libconf explain: cannot write {args.plot}: {exc}", file=sys.stderr)
+            return 1
     return 0
 
 
@@ -90,6 +107,19 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     if args.command == "explain":
         return run_explain(args)
+    if args.command == "report":
+        from .report import ReportError, write_report
+
+        try:
+            path = write_report(args.run_dir, args.output)
+        except ReportError as exc:
+            print(f"libconf report: {exc}", file=sys.stderr)
+            return 2
+        except OSError as exc:
+            print(f"libconf report: cannot write the report: {exc}", file=sys.stderr)
+            return 1
+        print(f"report written to {path}")
+        return 0
     if args.command == "annotate":
         from .pipeline import cli as pipeline_cli
 

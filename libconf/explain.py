@@ -109,3 +109,63 @@ def explain_text(res: MoleculeResult) -> str:
         )
         out.append("Estimates from additive increments; they do not replace experiment.")
     return "\n".join(out)
+
+
+def plot_chairs(res: MoleculeResult, path: str, max_rings: int = 6) -> None:
+    """One panel per ring: both chairs' energies, stacked by the terms that make them."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    rings = res.rings[:max_rings] or []
+    n = max(len(rings), 1)
+    fig, axes = plt.subplots(n, 1, figsize=(7.5, 1.9 * n + 0.6), squeeze=False)
+    if not rings:
+        axes[0][0].text(0.5, 0.5, "no saturated six-membered ring", ha="center", va="center")
+        axes[0][0].set_axis_off()
+    palette = plt.get_cmap("tab20").colors
+    for ax, r in zip((a[0] for a in axes), rings):
+        colours: dict[str, tuple] = {}
+        widest = 1.0
+        for c in (0, 1):
+            left = 0.0
+            for t in (t for t in r.contributions if t.chair == c):
+                name = t.detail if t.rule == "a_value" else f"{t.rule.replace('_', '-')}: {t.detail}"
+                new = name not in colours
+                colour = colours.setdefault(name, palette[len(colours) % len(palette)])
+                ax.barh(
+                    CHAIR_NAMES[c],
+                    t.energy_kjmol,
+                    left=left,
+                    color=colour,
+                    edgecolor="white",
+                    label=name if new else None,
+                )
+                left += t.energy_kjmol
+            widest = max(widest, left)
+            total = r.chair_energies_kjmol[c] if r.chair_energies_kjmol else None
+            label = "not a chair here" if total is None else f"{total:.1f} kJ/mol"
+            if r.major_chair == c:
+                label += "  (major)"
+            ax.text(max(left, 0) + 0.3, c, label, va="center", fontsize=8)
+        ax.axvline(0, color="black", linewidth=0.6)
+        ax.set_xlim(right=widest * 1.3)
+        ax.set_title(
+            f"ring {r.ring_id}: {r.ring_class}, {r.lock_class}"
+            + (f" - {r.lock_reason}" if r.lock_reason else ""),
+            fontsize=9,
+        )
+        ax.set_xlabel("kJ/mol above a strain-free chair", fontsize=8)
+        ax.invert_yaxis()
+        handles, labels = ax.get_legend_handles_labels()
+        if handles:
+            ax.legend(
+                handles, labels, fontsize=7, loc="center left", bbox_to_anchor=(1.01, 0.5), frameon=False
+            )
+        for side in ("top", "right"):
+            ax.spines[side].set_visible(False)
+    fig.suptitle(f"{res.smiles}  ({res.medium}, {res.temperature:g} K)", fontsize=9)
+    fig.tight_layout()
+    fig.savefig(path, dpi=120, bbox_inches="tight")
+    plt.close(fig)

@@ -116,3 +116,10 @@ def test_explain_help_mentions_media():
     proc = run_cli("explain", "--help")
     assert proc.returncode == 0
     assert "nonpolar" in proc.stdout and "water" in proc.stdout
+
+
+def test_explain_plot_writes_a_png(tmp_path):
+    out = tmp_path / "chairs.png"
+    proc = run_cli("explain", "C[C@@H]1C[C@H](C)CCC1", "--plot", str(out))
+    assert proc.returncode == 0, proc.stderr
+    assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
