@@ -57,7 +57,8 @@ COLUMNS = [
 
 def settings_string(seed: int = SEED) -> str:
     return (
-        f"generator={GENERATOR.split()[-1]};seed={seed};n_conformers={N_CONFORMERS};keep={KEEP};rotor_step={ROTOR_STEP};n_best={N_BEST};"
+        f"generator={GENERATOR.split()[-1]};seed={seed};n_conformers={N_CONFORMERS};keep={KEEP};"
+        f"rotor_step={ROTOR_STEP};n_best={N_BEST};"
         f"gtol={GTOL};solvent=alpb-{SOLVENT}"
     )
 
@@ -188,19 +189,24 @@ def run(out_path: Path, jobs: int = 2, only: list[str] | None = None, seed: int 
             )
 
 
-def summary(path: Path, min_abs: float = MIN_ABS_A) -> dict:
-    """MAE and sign agreement against experiment for each level, over groups with |A| >= min_abs."""
-    rows = _read(path)
+LEVELS = (("mmff94_dE_kjmol", False), ("gfn2_dE_kjmol", False), ("gfn2_alpb_water_dE_kjmol", True))
+
+
+def summary(path: Path, min_abs: float = MIN_ABS_A, confirmed_only: bool = False) -> dict:
+    """MAE and sign agreement against experiment for each level, over groups with |A| >= min_abs.
+
+    Every level is scored on the same groups (those with an MMFF94 and a gas-phase GFN2-xTB
+    value). ``confirmed_only`` leaves out rows whose experimental value is flagged from memory.
+    """
+    rows = [r for r in _read(path) if r["mmff94_dE_kjmol"] and r["gfn2_dE_kjmol"]]
+    if confirmed_only:
+        rows = [r for r in rows if r["exp_flag"].startswith("confirmed")]
     out = {}
-    for col, water in (
-        ("mmff94_dE_kjmol", False),
-        ("gfn2_dE_kjmol", False),
-        ("gfn2_alpb_water_dE_kjmol", True),
-    ):
+    for col, water in LEVELS:
         pairs = []
         for r in rows:
-            if not r[col] or not r["gfn2_dE_kjmol"] or not r["mmff94_dE_kjmol"]:
-                continue  # compare every level on the same groups
+            if not r[col]:
+                continue
             # the water column is compared with the protic-solvent value where the table has one
             exp_col = "exp_water_kjmol" if water and r["exp_water_kjmol"] else "exp_kjmol"
             exp = float(r[exp_col])
@@ -208,16 +214,29 @@ def summary(path: Path, min_abs: float = MIN_ABS_A) -> dict:
                 pairs.append((r["name"], exp, float(r[col])))
         n = len(pairs)
         wrong = [name for name, e, c in pairs if (e > 0) != (c > 0)]
-        mae = sum(abs(e - c) for _, e, c in pairs) / n if n else float("nan")
-        mse = sum(c - e for _, e, c in pairs) / n if n else float("nan")
         out[col] = {
             "n": n,
-            "mae_kjmol": mae,
-            "mean_signed_kjmol": mse,
+            "mae_kjmol": sum(abs(e - c) for _, e, c in pairs) / n if n else float("nan"),
+            "mean_signed_kjmol": sum(c - e for _, e, c in pairs) / n if n else float("nan"),
             "sign_agree": n - len(wrong),
             "wrong_sign": wrong,
         }
     return out
+
+
+def markdown_table(path: Path) -> str:
+    """The per-group comparison as a Markdown table (kJ/mol)."""
+    lines = [
+        "| group | name | exp | MMFF94 | GFN2-xTB | GFN2-xTB/ALPB(water) | exp flag |",
+        "|---|---|---|---|---|---|---|",
+    ]
+    for r in _read(path):
+        exp = r["exp_kjmol"] + (f" (water {r['exp_water_kjmol']})" if r["exp_water_kjmol"] else "")
+        lines.append(
+            f"| `{r['group']}` | {r['name']} | {exp} | {r['mmff94_dE_kjmol']} | {r['gfn2_dE_kjmol']} "
+            f"| {r['gfn2_alpb_water_dE_kjmol']} | {r['exp_flag']} |"
+        )
+    return "\n".join(lines)
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -227,14 +246,20 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--only", nargs="*", help="group SMILES or names to compute (default: all)")
     ap.add_argument("--seed", type=int, default=SEED, help=f"ETKDG seed (default {SEED})")
     ap.add_argument("--summary", action="store_true", help="print the comparison with experiment and stop")
+    ap.add_argument("--markdown", action="store_true", help="also print the per-group table as Markdown")
     a = ap.parse_args(argv)
     if not a.summary:
         run(a.out, a.jobs, a.only, a.seed)
-    for col, s in summary(a.out).items():
-        print(
-            f"{col:<26} n={s['n']:>2}  MAE {s['mae_kjmol']:.2f} kJ/mol  mean signed {s['mean_signed_kjmol']:+.2f}"
-            f"  sign {s['sign_agree']}/{s['n']}  wrong: {', '.join(s['wrong_sign']) or '-'}"
-        )
+    for title, confirmed in (("all groups", False), ("experimental value confirmed", True)):
+        print(f"|A| >= {MIN_ABS_A} kJ/mol, {title}:")
+        for col, s in summary(a.out, confirmed_only=confirmed).items():
+            print(
+                f"  {col:<26} n={s['n']:>2}  MAE {s['mae_kjmol']:.2f} kJ/mol  "
+                f"mean signed {s['mean_signed_kjmol']:+.2f}  sign {s['sign_agree']}/{s['n']}  "
+                f"wrong: {', '.join(s['wrong_sign']) or '-'}"
+            )
+    if a.markdown:
+        print(markdown_table(a.out))
     return 0
 
 
