@@ -70,6 +70,25 @@ def build_parser() -> argparse.ArgumentParser:
         pipeline_cli = None
     if pipeline_cli is not None:
         pipeline_cli.add_annotate_parser(sub)
+    aud = sub.add_parser(
+        "audit",
+        help="re-check a random sample of a finished run with a 3D calculation",
+        description="Build both chairs of a random sample of rings in 3D (MMFF94, or GFN2-xTB via "
+        "tblite) and compare with the run's predictions. A computed reference is a reference, "
+        "not the truth.",
+    )
+    aud.add_argument("run_dir", metavar="DIR", help="the --out directory of `libconf annotate`")
+    aud.add_argument("--sample", type=int, default=50, metavar="N", help="rings to check (default 50)")
+    aud.add_argument("--seed", type=int, default=0, metavar="S", help="random seed of the sample (default 0)")
+    aud.add_argument(
+        "--level",
+        choices=("mmff", "xtb"),
+        default="mmff",
+        help="MMFF94 (fast; mis-signs some polar groups) or GFN2-xTB (slower)",
+    )
+    aud.add_argument(
+        "--conformers", type=int, default=20, metavar="N", help="ETKDG embeddings per ring (default 20)"
+    )
     rep = sub.add_parser(
         "report",
         help="one self-contained HTML page summarising a finished run",
@@ -107,6 +126,24 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     if args.command == "explain":
         return run_explain(args)
+    if args.command == "audit":
+        from .audit import AuditError, audit
+
+        if args.sample < 1:
+            print("libconf audit: --sample must be at least 1", file=sys.stderr)
+            return 2
+        try:
+            audit(
+                args.run_dir,
+                sample=args.sample,
+                seed=args.seed,
+                level=args.level,
+                n_conformers=args.conformers,
+            )
+        except AuditError as exc:
+            print(f"libconf audit: {exc}", file=sys.stderr)
+            return 2
+        return 0
     if args.command == "report":
         from .report import ReportError, write_report
 
