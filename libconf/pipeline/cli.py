@@ -110,7 +110,12 @@ def add_annotate_parser(subparsers) -> argparse.ArgumentParser:
     mode.add_argument("--resume", action="store_true", help="continue an interrupted run in DIR")
     mode.add_argument("--overwrite", action="store_true", help="replace the results of an earlier run in DIR")
     p.add_argument(
-        "--scheduler", default=None, metavar="ADDRESS", help="run on a Dask cluster (not available yet)"
+        "--scheduler",
+        default=None,
+        metavar="ADDRESS",
+        help="run the chunks on the workers of a Dask cluster, e.g. tcp://10.0.0.5:8786 "
+        "(instead of --jobs; needs the 'cluster' extra; this machine still reads the "
+        "inputs and writes the tables)",
     )
     p.add_argument("--quiet", action="store_true", help="no progress bar and no summary line")
     p.set_defaults(command_func=run_annotate)
@@ -125,13 +130,6 @@ def _fail(message: str, status: int) -> int:
 def run_annotate(args: argparse.Namespace) -> int:
     from libconf.pipeline.run import annotate, format_summary
 
-    if args.scheduler is not None:
-        return _fail(
-            f"--scheduler {args.scheduler}: not available yet: runs on a Dask cluster "
-            "will come in a later release; leave out --scheduler to run on this machine "
-            "(--jobs N)",
-            EXIT_USAGE,
-        )
     if not args.inputs and not args.resume:
         return _fail("give at least one INPUT file (or - for SMILES on stdin)", EXIT_USAGE)
     try:
@@ -150,6 +148,7 @@ def run_annotate(args: argparse.Namespace) -> int:
             resume=args.resume,
             overwrite=args.overwrite,
             progress=not args.quiet and sys.stderr.isatty(),
+            scheduler=args.scheduler,
         )
     except UsageError as exc:
         return _fail(str(exc), EXIT_USAGE)

@@ -7,6 +7,10 @@ chunk order; after each chunk's four part files are in place, ``manifest.json`` 
 rewritten (atomically) with the count of finished chunks. Since chunks finish in order,
 the finished chunks are always chunks ``0 .. finished_chunks - 1``, and ``--resume``
 skips exactly those.
+
+With ``scheduler=`` (``--scheduler ADDRESS``) the same chunks go to the workers of a
+Dask cluster instead (:class:`_DaskExecutor`); this process still reads the inputs and
+writes every part file and the manifest, so only it needs the files.
 """
 
 from __future__ import annotations
@@ -494,6 +498,201 @@ class _Executor:
         return ChunkResult(chunk, tables, dict(counts))
 
 
+# --- execution on a Dask cluster ---------------------------------------------------------
+
+#: Seconds to wait for the scheduler to answer, and for a first worker to join it.
+DASK_CONNECT_TIMEOUT_S = 10.0
+DASK_WORKER_WAIT_S = 30.0
+
+
+def _connect(scheduler: Any) -> tuple[Any, bool]:
+    """A ``distributed.Client`` for ``scheduler`` (an address or a Client) and whether we own it."""
+    try:
+        from distributed import Client
+    except ImportError:
+        raise UsageError(
+            "--scheduler needs dask.distributed, which is not installed; install the "
+            "'cluster' extra (pip install 'libconf-sixring[cluster]') or leave out --scheduler"
+        ) from None
+    if isinstance(scheduler, Client):
+        return scheduler, False
+    if not isinstance(scheduler, str) or not scheduler.strip():
+        raise UsageError(f"--scheduler must be an address such as tcp://host:8786 (got {scheduler!r})")
+    address = scheduler.strip()
+    try:
+        client = Client(address, timeout=DASK_CONNECT_TIMEOUT_S, set_as_default=False)
+    except ValueError as exc:  # unknown scheme, malformed address
+        raise UsageError(f"--scheduler {address}: {exc}") from exc
+    except (OSError, TimeoutError) as exc:
+        raise FatalError(
+            f"cannot reach the Dask scheduler at {address} ({type(exc).__name__}: {exc}); start one "
+            "with `dask scheduler` and workers with `dask worker ADDRESS`, or check the address"
+        ) from exc
+    return client, True
+
+
+def _worker_versions() -> tuple[str, str]:
+    return libconf_version(), parameters_digest()
+
+
+def _cluster_threads(client: Any) -> int:
+    """Worker threads on the cluster, after checking they run the same libconf as we do."""
+    try:
+        client.wait_for_workers(1, timeout=DASK_WORKER_WAIT_S)
+    except (OSError, TimeoutError) as exc:
+        raise FatalError(
+            f"no Dask worker joined the scheduler at {client.scheduler.address} within "
+            f"{DASK_WORKER_WAIT_S:g} s; start workers with `dask worker {client.scheduler.address}`"
+        ) from exc
+    try:
+        found = client.run(_worker_versions)
+    except Exception as exc:  # the worker cannot even import libconf
+        raise FatalError(
+            f"the Dask workers cannot run libconf ({type(exc).__name__}: {exc}); install the "
+            "same libconf-sixring on every worker"
+        ) from exc
+    here = _worker_versions()
+    for worker, theirs in sorted(found.items()):
+        if tuple(theirs) != here:
+            raise FatalError(
+                f"Dask worker {worker} runs libconf {theirs[0]} with parameter tables "
+                f"{theirs[1][:12]}…, this process {here[0]} with {here[1][:12]}…; its rows "
+                "would differ, so install the same version on every worker"
+            )
+    return max(1, sum(client.nthreads().values()))
+
+
+class _ThreadTimeGuard:
+    """``--record-timeout`` for a record analysed in a Dask worker's thread.
+
+    SIGALRM reaches only a process's main thread and Dask runs tasks in a thread pool,
+    so a timer thread raises RecordTimeout in the analysing thread instead. Like the
+    alarm, it takes effect when that thread next runs Python code.
+    """
+
+    def __init__(self, analyze: Callable, seconds: float):
+        self.analyze = analyze
+        self.seconds = seconds
+
+    def __call__(self, target, **options):
+        import ctypes
+        import threading
+
+        from libconf.pipeline.work import RecordTimeout
+
+        ident = threading.get_ident()
+        state = {"done": False}
+        lock = threading.Lock()
+
+        def fire() -> None:
+            with lock:
+                if not state["done"]:
+                    ctypes.pythonapi.PyThreadState_SetAsyncExc(
+                        ctypes.c_ulong(ident), ctypes.py_object(RecordTimeout)
+                    )
+
+        timer = threading.Timer(self.seconds, fire)
+        timer.daemon = True
+        timer.start()
+        try:
+            return self.analyze(target, **options)
+        finally:
+            with lock:
+                state["done"] = True
+            timer.cancel()
+
+
+def _analyse_chunk_on_worker(
+    chunk: int, records: list[Record], options: AnalysisOptions, analyzer: Callable | None
+) -> ChunkResult:
+    import threading
+
+    from libconf.pipeline.work import default_analyzer
+
+    if options.record_timeout and threading.current_thread() is not threading.main_thread():
+        analyzer = _ThreadTimeGuard(analyzer or default_analyzer(), options.record_timeout)
+    return analyse_chunk(chunk, records, options, analyzer)
+
+
+class _DaskExecutor(_Executor):
+    """The same ordered, bounded map, with chunks as tasks on a Dask cluster.
+
+    At most ``2 × worker threads`` chunks are in flight. A record that kills its worker
+    process makes Dask give up on the chunk (``KilledWorker`` once the task has taken
+    down ``distributed.scheduler.allowed-failures`` workers); the chunk is then re-run
+    record by record, as with local worker processes.
+    """
+
+    def __init__(self, client: Any, jobs: int, options: AnalysisOptions, analyzer: Callable | None):
+        self.client = client
+        self.jobs = jobs
+        self.options = options
+        self.analyzer = analyzer
+        self.window = max(2 * jobs, 2)
+
+    def _submit(self, chunk: int, records: list[Record]):
+        return self.client.submit(
+            _analyse_chunk_on_worker, chunk, records, self.options, self.analyzer, pure=False
+        )
+
+    def _ordered(self, chunks: Iterator[tuple[int, list[Record]]], pending: collections.deque):
+        from distributed import KilledWorker
+
+        source = iter(chunks)
+        exhausted = False
+        while True:
+            while not exhausted and len(pending) < self.window:
+                try:
+                    chunk, records = next(source)
+                except StopIteration:
+                    exhausted = True
+                    break
+                pending.append((chunk, records, self._submit(chunk, records)))
+            if not pending:
+                return
+            chunk, records, fut = pending[0]
+            try:
+                result = fut.result()
+            except KilledWorker:
+                result = self._isolated(chunk, records)
+            pending.popleft()
+            yield result
+
+    def _isolated(self, chunk: int, records: list[Record]) -> ChunkResult:
+        """The chunk re-run one record per task; a record that still kills its worker
+        becomes an ``analyse`` error row."""
+        from distributed import KilledWorker
+
+        futures = [self._submit(chunk, [rec]) for rec in records]
+        parts = []
+        for rec, fut in zip(records, futures, strict=True):
+            try:
+                parts.append(fut.result())
+                continue
+            except KilledWorker:
+                pass
+            try:
+                # Alone this time: it may only have been queued on the worker that died.
+                parts.append(self._submit(chunk, [rec]).result())
+            except KilledWorker:
+                failed = rec._replace(
+                    kind="error",
+                    text="",
+                    raw=rec.raw or truncate_raw(rec.text),
+                    reason="the analysis crashed its worker process on this record (a fault in "
+                    "native code, or too much memory); please report it with the raw record",
+                    stage="analyse",
+                )
+                one = analyse_chunk(chunk, [failed], self.options, self.analyzer)
+                one.counts["internal_errors"] = 1
+                parts.append(one)
+        tables = {t: pa.concat_tables([p.tables[t] for p in parts]) for t in TABLES}
+        counts: collections.Counter = collections.Counter()
+        for p in parts:
+            counts.update(p.counts)
+        return ChunkResult(chunk, tables, dict(counts))
+
+
 def _progress_bar(enabled: bool, total: int | None):
     if not enabled:
         return None
@@ -528,20 +727,58 @@ def annotate(
     progress: bool = False,
     analyzer: Callable | None = None,
     stdin: BinaryIO | None = None,
+    scheduler: Any = None,
 ) -> dict:
     """Annotate every record of ``inputs`` and write the four tables under ``out_dir``.
 
     Returns the summary (the ``counts`` of the manifest plus wall time). Options left
     at None take their defaults, or on ``resume=True`` the values the run started with.
     ``analyzer`` replaces ``libconf.engine.analyze`` (same signature): for tests and
-    custom engines. Raises UsageError (bad options, refused directory) or FatalError
-    (unreadable input, unwritable output).
+    custom engines. ``scheduler`` (a Dask scheduler address such as
+    ``"tcp://10.0.0.5:8786"``, or a ``distributed.Client``) runs the chunks on that
+    cluster's workers instead of ``jobs`` local processes; the tables are the same.
+    Raises UsageError (bad options, refused directory) or FatalError (unreadable input,
+    unwritable output, unreachable scheduler).
 
     >>> summary = annotate(["library.smi.gz"], "run1", jobs=4)  # doctest: +SKIP
     >>> summary["records"] == summary["molecules"] + summary["errors"]  # doctest: +SKIP
     True
     """
     start = time.perf_counter()
+    if scheduler is None:
+        return _annotate(**locals())
+    if jobs is not None:
+        raise UsageError("--jobs and --scheduler exclude each other: the cluster's workers do the work")
+    client, owned = _connect(scheduler)
+    try:
+        return _annotate(**{**locals(), "jobs": _cluster_threads(client), "scheduler": client})
+    finally:
+        if owned:
+            client.close()
+
+
+def _annotate(
+    inputs,
+    out_dir,
+    *,
+    jobs,
+    chunk_size,
+    temperature,
+    medium,
+    smiles_column,
+    id_column,
+    record_timeout,
+    max_heavy_atoms,
+    max_stereo_assignments,
+    resume,
+    overwrite,
+    progress,
+    analyzer,
+    stdin,
+    scheduler,
+    start,
+    **_,
+) -> dict:
     if isinstance(inputs, (str, os.PathLike)):
         inputs = [inputs]
     names = [os.fspath(i) for i in inputs]
@@ -611,6 +848,7 @@ def annotate(
             }
         manifest_path = os.path.join(out_dir, MANIFEST)
         manifest["jobs"] = jobs
+        manifest["scheduler"] = scheduler.scheduler.address if scheduler is not None else None
         manifest["counts"] = counts
         _write_json_atomic(manifest_path, manifest)
         fsync_dir(out_dir)
@@ -634,7 +872,10 @@ def annotate(
                     continue
                 yield chunk, records
 
-        executor = _Executor(jobs, options, analyzer)
+        if scheduler is None:
+            executor = _Executor(jobs, options, analyzer)
+        else:
+            executor = _DaskExecutor(scheduler, jobs, options, analyzer)
         try:
             results = contextlib.closing(executor.map(todo()))
             with results as ordered:
