@@ -6,6 +6,7 @@ guards (time limit, crash isolation, resume) must behave as they do locally.
 
 from __future__ import annotations
 
+import gzip
 import json
 import os
 import subprocess
@@ -183,3 +184,22 @@ def test_annotate_frame_runs_as_dask_map_partitions_with_a_fixed_meta(client):
     pd.testing.assert_frame_equal(got, want, check_exact=True)
     assert (got.dtypes == frame_meta().dtypes).all()
     assert got.error.notna().tolist() == [False, False, True, True, True, False, False]
+
+
+def test_url_inputs_are_read_by_the_client_and_give_the_same_rows(client, tmp_path):
+    import fsspec
+
+    with fsspec.open("memory://libconf-test/mixed.smi.gz", "wb") as fh:
+        fh.write(gzip.compress((DATA / "mixed.smi").read_bytes()))
+    urls = ["memory://libconf-test/mixed.smi.gz", (DATA / "quoted.csv").as_uri()]
+    annotate(urls, tmp_path / "url", chunk_size=3, scheduler=client)
+    annotate([DATA / "mixed.smi", DATA / "quoted.csv"], tmp_path / "local", jobs=1, chunk_size=3)
+    got, want = tables(tmp_path / "url"), tables(tmp_path / "local")
+    for t in TABLES:
+        assert set(got[t].input_file) <= set(urls)
+        cols = [c for c in want[t].columns if c != "input_file"]  # ids from the same stems
+        pd.testing.assert_frame_equal(got[t][cols], want[t][cols], check_exact=True, obj=t)
+    m = manifest(tmp_path / "url")
+    assert [i["path"] for i in m["inputs"]] == urls
+    with pytest.raises(FatalError, match="does not exist"):
+        annotate(["memory://libconf-test/none.smi"], tmp_path / "none", jobs=1)

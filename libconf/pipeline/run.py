@@ -172,6 +172,35 @@ def _spool_stdin(stream: BinaryIO) -> str:
     return path
 
 
+def _is_url(name: str) -> bool:
+    return "://" in name and not os.path.exists(name)
+
+
+def _spool_url(url: str) -> str:
+    """Copy a remote input (any fsspec URL: s3://, gs://, https://, memory://, file://)
+    to a local temporary file, read and hashed like a local one."""
+    try:
+        import fsspec
+    except ImportError:
+        raise UsageError(
+            f"{url}: URL inputs need fsspec; install the 'cluster' extra or copy the file here"
+        ) from None
+    fd, path = tempfile.mkstemp(prefix="libconf-url-")
+    try:
+        with os.fdopen(fd, "wb") as out, fsspec.open(url, "rb") as src:
+            shutil.copyfileobj(src, out, 1 << 20)
+    except FileNotFoundError as exc:
+        os.unlink(path)
+        raise FatalError(f"input {url} does not exist") from exc
+    except (ImportError, ValueError) as exc:  # unknown protocol, its driver missing
+        os.unlink(path)
+        raise UsageError(f"{url}: {exc}") from exc
+    except OSError as exc:
+        os.unlink(path)
+        raise FatalError(f"cannot read input {url}: {exc}") from exc
+    return path
+
+
 def _resolve_inputs(
     names: Sequence[str],
     stdin: BinaryIO | None,
@@ -192,6 +221,14 @@ def _resolve_inputs(
             path = _spool_stdin(stdin if stdin is not None else sys.stdin.buffer)
             spools.append(path)
             spec = InputSpec(name, path, "smiles", False, "stdin")
+        elif _is_url(name):
+            if name in seen:
+                raise UsageError(f"{name} is given twice")
+            seen.add(name)
+            fmt, compressed, stem = detect_format(name.split("?", 1)[0])
+            path = _spool_url(name)
+            spools.append(path)
+            spec = InputSpec(name, path, fmt, compressed, stem)
         else:
             key = os.path.realpath(name)
             if key in seen:
@@ -212,7 +249,7 @@ def _resolve_inputs(
         probe_columns(spec, smiles_column, id_column)
         info = {
             "name": spec.input_file,
-            "path": "-" if name == "-" else os.path.abspath(name),
+            "path": name if name == "-" or _is_url(name) else os.path.abspath(name),
             "format": spec.format,
             "compressed": spec.compressed,
             "size": size,
