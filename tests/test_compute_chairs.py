@@ -153,3 +153,48 @@ def test_gfn2_xtb_gradient_shortens_a_stretched_bond():
     assert np.isfinite(energy) and energy < 0
     force_on_h = -grad[1]
     assert float(np.dot(force_on_h, pos[0] - pos[1])) > 0
+
+
+def _fusion_hydrogens_same_face(pair):
+    """True for cis fusion: the two fusion H atoms on one face of the ring (geometry)."""
+    pos = pair.best(0 if pair.chairs[0] else 1).positions
+    _, n = ring_normal(pos, pair.ring)
+    sides = []
+    for a in pair.ring:
+        atom = pair.mol.GetAtomWithIdx(a)
+        hs = [x.GetIdx() for x in atom.GetNeighbors() if x.GetAtomicNum() == 1]
+        if atom.GetDegree() == 4 and len(hs) == 1:
+            sides.append(float(np.dot(pos[hs[0]] - pos[a], n)) > 0)
+    assert len(sides) == 2
+    return sides[0] == sides[1]
+
+
+def test_cis_decalin_has_two_equal_chairs_and_trans_decalin_only_one():
+    # cis-decalin flips and trans-decalin cannot (common practice; science notes section 7);
+    # the two chairs of cis-decalin are mirror images, so their energies are equal
+    seen = set()
+    for smi in ("[H][C@@]12CCCC[C@]1([H])CCCC2", "[H][C@@]12CCCC[C@@]1([H])CCCC2"):
+        mol = Chem.MolFromSmiles(smi)
+        ring = (0, 1, 2, 3, 4, 5)  # explicit [H] atoms are folded into their carbons by RDKit
+        pair = both_chairs(mol, ring, n_conformers=15, seed=5)
+        cis = _fusion_hydrogens_same_face(pair)
+        seen.add(cis)
+        if cis:
+            assert pair.chairs[0] and pair.chairs[1]
+            assert pair.best(0).energy_kj == pytest.approx(pair.best(1).energy_kj, abs=0.05)
+        else:
+            assert bool(pair.chairs[0]) != bool(pair.chairs[1])
+    assert seen == {True, False}
+
+
+def test_n_methylpiperidine_keeps_its_methyl_equatorial_in_both_chairs():
+    # N-inversion lets the N-substituent take its better position in each chair; N-CH3 is
+    # strongly equatorial (about 2.7-3.2 kcal/mol, memory). The molecule is achiral, so the
+    # two chairs are mirror images with equal energies.
+    mol = Chem.MolFromSmiles("CN1CCCCC1")  # methyl = atom 0, ring N = atom 1
+    pair = both_chairs(mol, (1, 2, 3, 4, 5, 6), n_conformers=15, seed=5)
+    assert pair.best(0).energy_kj == pytest.approx(pair.best(1).energy_kj, abs=0.05)
+    for c in (0, 1):
+        assert pair.best(c).placements[0] == "equatorial"
+        axial = [conf for conf in pair.chairs[c] if conf.placements[0] == "axial"]
+        assert axial and axial[0].energy_kj > pair.best(c).energy_kj + 4.0

@@ -20,17 +20,28 @@ Conventions (the same ones the engine uses without coordinates):
   Anything else is reported as ``TWIST`` (twist-boat, boat, half-chair,
   envelope).
 
-Sampling: ETKDG embeddings, each optimised with MMFF94. A ring atom carrying
-two different exocyclic neighbours but no chiral tag (the CH of a
-monosubstituted cyclohexane) gets a tag first, so that every conformer has its
-substituents on the same faces and the two chairs are the only difference
-that matters. When sampling yields too few conformers of one chair, the
-missing chair is forced from the other one: MMFF94 with the six ring torsions
-constrained to the mirror-image pattern (each torsion's sign reversed), then
-released and re-optimised without constraints; it is kept only if it is
-still the wanted chair. Several conformers per chair are kept (different
-side-chain rotamers), so that the best one is a minimum over rotamers, not an
-artefact of one embedding.
+Sampling, in this order (all minimised with MMFF94):
+
+1. ETKDG embeddings. A ring atom carrying two different exocyclic neighbours but no
+   chiral tag (the CH of a monosubstituted cyclohexane) gets a tag first, so that every
+   conformer has its substituents on the same faces and the two chairs are the only
+   difference that matters. Untagged fusion / bridgehead atoms are not tagged (a wrong
+   tag can make a cage impossible to embed); their faces are taken from the lowest
+   embedded chair. Conformers with any watched substituent off its face are dropped.
+2. Forced flips: from the best conformers of each chair, MMFF94 with the six ring
+   torsions held at 0, then half, then all of the mirror-image pattern (each torsion's
+   sign reversed), then released and re-minimised; kept only if it is the other chair
+   with every substituent still on its face. This fills a chair sampling missed and
+   carries rotamers across.
+3. Other saturated six-membered rings sharing no atom with this one (a cyclohexyl
+   substituent) are flipped the same way.
+4. N inversion: a substituent on a three-connected ring N is turned rigidly to its
+   mirror position about the C-N-C plane (a rotation, so stereocentres in it keep their
+   configuration).
+5. Rotor scan: each acyclic ring-substituent bond is turned in ``rotor_step`` steps.
+
+Several distinct minima per chair are kept, so that the best one is a minimum over
+rotamers, not an artefact of one embedding.
 """
 
 from __future__ import annotations
@@ -141,6 +152,7 @@ class ChairPair:
     n_forced: int = 0  # conformers kept from a forced flip
     n_rotamer_starts: int = 0  # rotor-scan starts that stayed in their chair
     n_side_ring_flips: int = 0  # flips of another six-membered ring that kept this one's chair
+    n_invertomer_starts: int = 0  # N-inversion starts that stayed in their chair
     notes: list[str] = field(default_factory=list)
 
     def best(self, chair: int) -> ChairConformer:
@@ -182,23 +194,35 @@ def _check_ring(mol: Chem.Mol, ring: tuple[int, ...]) -> None:
             raise ValueError("the ring is not saturated (every endocyclic bond must be single)")
 
 
-def _pin_faces(mh: Chem.Mol, ring: tuple[int, ...]) -> dict[int, str]:
-    """Tag untagged ring atoms with two different exocyclic neighbours; return every face."""
+def _pin_faces(mh: Chem.Mol, ring: tuple[int, ...]) -> tuple[dict[int, str], set[int]]:
+    """Fix the face of every ring substituent that has one; return (faces, atoms to watch).
+
+    A ring atom with two different exocyclic neighbours and no chiral tag gets one (the
+    CH of a monosubstituted ring). Not when one of its exocyclic bonds is a ring bond (a
+    fusion or bridgehead atom): a wrong tag there can make a cage impossible to embed, so
+    its face is left to the geometry and taken from the lowest embedded chair. Two
+    equivalent exocyclic neighbours (gem-dimethyl, CH2) have no face worth keeping.
+    """
     ring_set = set(ring)
+    ranks = list(Chem.CanonicalRankAtoms(mh, breakTies=False))
     faces: dict[int, str] = {}
+    watch: set[int] = set()
     for k, a in enumerate(ring):
         atom = mh.GetAtomWithIdx(a)
         exo = [n.GetIdx() for n in atom.GetNeighbors() if n.GetIdx() not in ring_set]
-        if len(exo) != 2:
-            continue  # a ring N/O/S with a lone pair, or a trigonal atom: nothing to pin
+        if len(exo) != 2 or ranks[exo[0]] == ranks[exo[1]]:
+            continue  # a ring N/O/S with a lone pair, a trigonal atom, or two equal groups
+        watch.update(exo)
         if atom.GetChiralTag() in _UNTAGGED:
+            if any(mh.GetBondBetweenAtoms(a, x).IsInRing() for x in exo):
+                continue
             atom.SetChiralTag(_CW)
         prev, nxt = ring[k - 1], ring[(k + 1) % 6]
-        for s in exo:
-            f = face_from_tag(atom, prev, nxt, s)
+        for x in exo:
+            f = face_from_tag(atom, prev, nxt, x)
             if f is not None:
-                faces[s] = f
-    return faces
+                faces[x] = f
+    return faces, watch
 
 
 def _conformer_faces(pos: np.ndarray, ring: tuple[int, ...], mh: Chem.Mol) -> dict[int, str]:
@@ -234,17 +258,18 @@ def _relax(mh: Chem.Mol, props, conf_id: int, max_iters: int = 10000) -> float:
     return float(ff.CalcEnergy())
 
 
-def _force_flip(mh: Chem.Mol, props, conf_id: int, ring: tuple[int, ...], k_torsion: float) -> None:
-    """Drive the ring into the mirror-image torsion pattern of its current chair."""
+def _force_flip(mh: Chem.Mol, props, conf_id: int, rings: list[tuple[int, ...]], k_torsion: float) -> None:
+    """Drive every ring of ``rings`` into the mirror-image torsion pattern of its current form."""
     pos = mh.GetConformer(conf_id).GetPositions()
-    target = -ring_torsions(pos, ring)
+    targets = [(r, -ring_torsions(pos, r)) for r in rings]
     # in steps, through the flat ring: a direct jump to the far pattern can stall at a twist-boat
     for frac in (0.0, 0.5, 1.0):
         ff = _mmff(mh, props, conf_id)
-        for i in range(6):
-            quad = (ring[i - 1], ring[i], ring[(i + 1) % 6], ring[(i + 2) % 6])
-            t = frac * float(target[i])
-            ff.MMFFAddTorsionConstraint(*quad, False, t, t, k_torsion)
+        for r, target in targets:
+            for i in range(6):
+                quad = (r[i - 1], r[i], r[(i + 1) % 6], r[(i + 2) % 6])
+                t = frac * float(target[i])
+                ff.MMFFAddTorsionConstraint(*quad, False, t, t, k_torsion)
         ff.Minimize(maxIts=5000)
 
 
@@ -298,6 +323,51 @@ def _rotor_bonds(mh: Chem.Mol, ring: tuple[int, ...]) -> list[tuple[int, int, li
     return out
 
 
+def _invertible_nitrogens(mh: Chem.Mol, ring: tuple[int, ...]) -> list[tuple[int, int, list[int]]]:
+    """(ring N, its exocyclic neighbour, atoms on that side) for each three-connected ring N."""
+    ring_set = set(ring)
+    out = []
+    for a in ring:
+        atom = mh.GetAtomWithIdx(a)
+        if atom.GetAtomicNum() != 7 or atom.GetDegree() != 3 or atom.GetIsAromatic():
+            continue
+        exo = [x.GetIdx() for x in atom.GetNeighbors() if x.GetIdx() not in ring_set]
+        if len(exo) != 1 or mh.GetBondBetweenAtoms(a, exo[0]).IsInRing():
+            continue
+        side, stack = {exo[0]}, [exo[0]]
+        while stack:
+            for y in mh.GetAtomWithIdx(stack.pop()).GetNeighbors():
+                if y.GetIdx() != a and y.GetIdx() not in side:
+                    side.add(y.GetIdx())
+                    stack.append(y.GetIdx())
+        out.append((a, exo[0], sorted(side)))
+    return out
+
+
+def _inverted(pos: np.ndarray, ring: tuple[int, ...], n_atom: int, x: int, moving: list[int]) -> np.ndarray:
+    """Positions with the N substituent turned rigidly to its mirror position about the C-N-C plane.
+
+    A rotation, not a reflection, so stereocentres in the substituent keep their configuration.
+    """
+    k = ring.index(n_atom)
+    o = pos[n_atom]
+    m = np.cross(pos[ring[k - 1]] - o, pos[ring[(k + 1) % 6]] - o)
+    m = m / np.linalg.norm(m)
+    u = pos[x] - o
+    u = u / np.linalg.norm(u)
+    v = u - 2 * np.dot(u, m) * m
+    axis = np.cross(u, v)
+    if np.linalg.norm(axis) < 1e-6:
+        return pos.copy()  # the substituent lies in the plane: nothing to invert
+    axis = axis / np.linalg.norm(axis)
+    t = np.arccos(np.clip(np.dot(u, v), -1.0, 1.0))
+    kx = np.array([[0, -axis[2], axis[1]], [axis[2], 0, -axis[0]], [-axis[1], axis[0], 0]])
+    rot = np.eye(3) + np.sin(t) * kx + (1 - np.cos(t)) * (kx @ kx)  # Rodrigues
+    new = pos.copy()
+    new[moving] = (pos[moving] - o) @ rot.T + o
+    return new
+
+
 def _turned(pos: np.ndarray, axis_from: int, axis_to: int, moving: list[int], degrees: float) -> np.ndarray:
     """Positions with ``moving`` rotated rigidly about the bond axis_from -> axis_to."""
     o = pos[axis_from]
@@ -317,19 +387,24 @@ def _flip(mh, props, flip_ring, ring, src: ChairConformer, k_torsion: float, min
     conf = mh.GetConformer(cid)
     for i, q in enumerate(src.positions):
         conf.SetAtomPosition(i, q.tolist())
-    _force_flip(mh, props, cid, flip_ring, k_torsion)
+    # a ring fused to this one (sharing a bond) flips with it, as in cis-decalin
+    fused = [
+        r
+        for r in _six_rings(mh)
+        if r != flip_ring and len(set(r) & set(flip_ring)) >= 2 and chair_label(src.positions, r) != TWIST
+    ]
+    _force_flip(mh, props, cid, [flip_ring, *fused], k_torsion)
     e = _relax(mh, props, cid)
     rec = _record(mh, ring, cid, e, True, min_torsion)
     mh.RemoveConformer(cid)
     return rec
 
 
-def _other_six_rings(mh: Chem.Mol, ring: tuple[int, ...]) -> list[tuple[int, ...]]:
-    """Saturated six-membered rings sharing no atom with ``ring``, in ring order."""
+def _six_rings(mh: Chem.Mol) -> list[tuple[int, ...]]:
+    """Every saturated six-membered ring, in ring order."""
     out = []
-    ring_set = set(ring)
     for r in mh.GetRingInfo().AtomRings():
-        if len(r) != 6 or ring_set & set(r):
+        if len(r) != 6:
             continue
         try:
             _check_ring(mh, tuple(r))
@@ -337,6 +412,11 @@ def _other_six_rings(mh: Chem.Mol, ring: tuple[int, ...]) -> list[tuple[int, ...
             continue
         out.append(tuple(r))
     return out
+
+
+def _other_six_rings(mh: Chem.Mol, ring: tuple[int, ...]) -> list[tuple[int, ...]]:
+    """Saturated six-membered rings sharing no atom with ``ring``."""
+    return [r for r in _six_rings(mh) if not set(r) & set(ring)]
 
 
 def force_flip(
@@ -368,10 +448,10 @@ def both_chairs(
 ) -> ChairPair:
     """Build both chairs of the ring ``ring_atoms`` (in ring order) of ``mol``.
 
-    Returns up to ``keep`` distinct MMFF94 minima per chair, lowest first. A chair with
-    fewer than two distinct minima from sampling is also reached by forced flips from
-    the other chair. Each acyclic ring-substituent bond is then turned in steps of
-    ``rotor_step`` degrees from the best conformers of each chair (None: no scan).
+    Returns up to ``keep`` distinct MMFF94 minima per chair, lowest first (sampling:
+    see the module docstring; ``max_forced`` conformers of each chair are force-flipped,
+    ``rotor_step`` None switches the rotor scan off). A chair the topology forbids
+    (trans ring fusion, cages) or that no start reaches stays empty.
     ``seed`` fixes the ETKDG embedding, so a call is reproducible.
 
     >>> from rdkit import Chem
@@ -382,7 +462,7 @@ def both_chairs(
     ring = tuple(int(a) for a in ring_atoms)
     _check_ring(mol, ring)
     mh = Chem.AddHs(mol)
-    faces = _pin_faces(mh, ring)
+    faces, watch = _pin_faces(mh, ring)
     params = AllChem.ETKDGv3()
     params.randomSeed = int(seed)
     params.pruneRmsThresh = 0.1
@@ -408,23 +488,34 @@ def both_chairs(
         if rec is None:
             return False
         geo = _conformer_faces(rec.positions, ring, mh)
-        if any(geo.get(a) != f for a, f in faces.items()):
+        if any(geo.get(a) != faces.get(a) for a in watch):
             pair.notes.append(f"{how}: a substituent off its configured face; dropped")
             return False
         return True
 
+    embedded = []
     for cid in cids:
         e = _relax(mh, props, cid)
         rec = _record(mh, ring, cid, e, False, min_torsion)
         if rec is None:
             pair.n_twist += 1
-        elif on_faces(rec, f"embedding {cid}"):
+        else:
+            embedded.append(rec)
+    if embedded and watch - set(faces):
+        # faces no tag fixes (untagged fusion / bridgehead atoms): those of the lowest chair
+        low = min(embedded, key=lambda r: r.energy_kj)
+        geo = _conformer_faces(low.positions, ring, mh)
+        faces.update({a: geo[a] for a in watch - set(faces)})
+        pair.notes.append("faces of untagged fusion/bridgehead atoms taken from the lowest embedded chair")
+    for rec in embedded:
+        if on_faces(rec, "embedding"):
             found[rec.chair].append(rec)
 
+    # each chair also from forced flips of the best conformers of the other one: it fills a
+    # chair sampling missed and carries the other chair's rotamers across
+    sampled = {c: _distinct(found[c], max_forced) for c in (0, 1)}
     for target in (0, 1):
-        if len(_distinct(found[target], keep)) >= min(2, keep):
-            continue
-        for src in _distinct(found[1 - target], max_forced):
+        for src in sampled[1 - target]:
             rec = _flip(mh, props, ring, ring, src, k_torsion, min_torsion)
             if rec is not None and rec.chair == target and on_faces(rec, "forced flip"):
                 found[target].append(rec)
@@ -441,6 +532,22 @@ def both_chairs(
                 if rec is not None and rec.chair == c and on_faces(rec, "side-ring flip"):
                     found[c].append(rec)
                     pair.n_side_ring_flips += 1
+
+    # a substituent on a pyramidal ring N takes either position by N inversion (fast next
+    # to ring inversion): start each kept conformer from the other invertomer as well
+    for n_atom, x, moving in _invertible_nitrogens(mh, ring):
+        for c in (0, 1):
+            for src in _distinct(found[c], keep):
+                cid = mh.AddConformer(Chem.Conformer(mh.GetNumAtoms()), assignId=True)
+                conf = mh.GetConformer(cid)
+                for i, q in enumerate(_inverted(src.positions, ring, n_atom, x, moving)):
+                    conf.SetAtomPosition(i, q.tolist())
+                e = _relax(mh, props, cid)
+                rec = _record(mh, ring, cid, e, src.forced, min_torsion)
+                mh.RemoveConformer(cid)
+                if rec is not None and rec.chair == c and on_faces(rec, "N inversion"):
+                    found[c].append(rec)
+                    pair.n_invertomer_starts += 1
 
     # ETKDG leaves rotamers of the ring-substituent bonds to chance: turn each one
     # systematically from the best conformers of each chair and re-optimise
@@ -465,5 +572,5 @@ def both_chairs(
     if any(pair.chairs[c] for c in (0, 1)):
         sample = next(pair.chairs[c][0] for c in (0, 1) if pair.chairs[c])
         geo = _conformer_faces(sample.positions, ring, mh)
-        pair.faces = {s: faces.get(s, geo[s]) for s in geo}
+        pair.faces = {a: faces.get(a, geo[a]) for a in geo}
     return pair

@@ -21,7 +21,7 @@ import sys
 import time
 from pathlib import Path
 
-GENERATOR = "libconf.compute.level_of_theory 2"  # bump when a change alters the numbers
+GENERATOR = "libconf.compute.level_of_theory 3"  # bump when a change alters the numbers
 GROUPS = Path(__file__).resolve().parents[2] / "datasets" / "computed" / "level_of_theory_groups.csv"
 SEED = 20261201
 N_CONFORMERS = 50
