@@ -203,3 +203,13 @@ def test_url_inputs_are_read_by_the_client_and_give_the_same_rows(client, tmp_pa
     assert [i["path"] for i in m["inputs"]] == urls
     with pytest.raises(FatalError, match="does not exist"):
         annotate(["memory://libconf-test/none.smi"], tmp_path / "none", jobs=1)
+
+
+def test_workers_with_other_parameter_tables_are_refused(client, tmp_path, monkeypatch):
+    import libconf.pipeline.run as run
+
+    # Only this process sees the patch; the workers report the real tables' hash.
+    monkeypatch.setattr(run, "parameters_digest", lambda: "0" * 64)
+    with pytest.raises(FatalError, match="install the same version on every worker"):
+        annotate(CURATED[:1], tmp_path / "v", scheduler=client)
+    assert not (tmp_path / "v").exists()

@@ -243,3 +243,18 @@ def test_n_jobs_gives_the_same_matrix_as_one_process():
     np.testing.assert_array_equal(one, two)
     with pytest.raises(ValueError, match=r"row 4 "):
         RingConformationFeatures(on_error="raise", n_jobs=2).fit_transform(smiles)
+
+
+def test_n_jobs_works_after_a_batch_run_in_the_same_process(tmp_path):
+    # annotate's worker pool and joblib.Parallel share one process-wide pool; a pool
+    # of the wrong kind made every later n_jobs > 1 call fail.
+    from libconf.pipeline.run import annotate
+
+    src = tmp_path / "lib.smi"
+    src.write_text("".join(f"{s} q{k}\n" for k, s in enumerate(SMILES)))
+    annotate([src], tmp_path / "run", jobs=2, chunk_size=2)
+    smiles = [SMILES[k % len(SMILES)] for k in range(120)]
+    np.testing.assert_array_equal(
+        RingConformationFeatures(n_jobs=2).fit_transform(smiles),
+        RingConformationFeatures().fit_transform(smiles),
+    )

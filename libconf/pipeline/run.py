@@ -442,16 +442,19 @@ class _Executor:
     """Ordered, bounded parallel map of analyse_chunk over chunks (loky processes)."""
 
     def __init__(self, jobs: int, options: AnalysisOptions, analyzer: Callable | None):
-        from joblib.externals.loky import get_reusable_executor
+        # joblib's wrapper of loky's reusable pool, not loky's own: both share one
+        # process-wide pool, and joblib.Parallel (scikit-learn's n_jobs) fails on a pool
+        # that loky's plain function created.
+        from joblib.executor import get_memmapping_executor
 
-        self._get = get_reusable_executor
+        self._get = get_memmapping_executor
         self.jobs = jobs
         self.options = options
         self.analyzer = analyzer
         self.window = max(2 * jobs, 2)
 
     def _pool(self, workers: int):
-        return self._get(max_workers=workers, timeout=60)
+        return self._get(workers, timeout=60)
 
     def map(self, chunks: Iterator[tuple[int, list[Record]]]) -> Iterator[ChunkResult]:
         pending: collections.deque = collections.deque()
