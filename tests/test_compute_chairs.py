@@ -198,3 +198,51 @@ def test_n_methylpiperidine_keeps_its_methyl_equatorial_in_both_chairs():
         assert pair.best(c).placements[0] == "equatorial"
         axial = [conf for conf in pair.chairs[c] if conf.placements[0] == "axial"]
         assert axial and axial[0].energy_kj > pair.best(c).energy_kj + 4.0
+
+
+def test_level_of_theory_run_resumes_with_the_missing_groups_only_and_refuses_other_settings(
+    tmp_path, monkeypatch
+):
+    import csv
+
+    from libconf.compute import level_of_theory as lot
+
+    calls = []
+
+    def fake_group(row, seed=lot.SEED):  # stands in for the 3D work; the bookkeeping is under test
+        calls.append(row["group"])
+        return {
+            "group": row["group"],
+            "name": row["name"],
+            "status": "ok",
+            "settings": lot.settings_string(seed),
+        }
+
+    monkeypatch.setattr(lot, "compute_group", fake_group)
+    out = tmp_path / "lot.csv"
+    lot.run(out, jobs=1, only=["*C", "*F"])
+    assert sorted(calls) == ["*C", "*F"]
+    lot.run(out, jobs=1, only=["*C", "*F", "*Cl"])
+    assert sorted(calls) == ["*C", "*Cl", "*F"]
+    with open(out, newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    assert sorted(r["group"] for r in rows) == ["*C", "*Cl", "*F"]
+    with pytest.raises(SystemExit):
+        lot.run(out, jobs=1, only=["*Br"], seed=lot.SEED + 1)
+    assert "*Br" not in calls
+
+
+def test_every_experimental_value_in_the_group_table_names_its_source_and_flag():
+    import csv
+
+    from libconf.compute.level_of_theory import GROUPS, cyclohexyl
+
+    with open(GROUPS, newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    assert len(rows) >= 30
+    for r in rows:
+        assert r["source"].strip() and r["flag"].split()[0] in ("confirmed", "from")
+        # kJ/mol column = kcal/mol column x 4.184 (rounded as tabulated)
+        assert float(r["exp_kjmol"]) == pytest.approx(float(r["exp_kcalmol"]) * 4.184, abs=0.06)
+        mol, ring, sub = cyclohexyl(r["group"])
+        assert mol.GetBondBetweenAtoms(ring[0], sub) is not None

@@ -182,9 +182,9 @@ def run(out_path: Path, jobs: int = 2, only: list[str] | None = None, seed: int 
             fh.flush()
             os.fsync(fh.fileno())
             print(
-                f"[{i}/{len(todo)}] {row['name']:<22} exp {row['exp_kjmol']:>5}  MMFF94 {row.get('mmff94_dE_kjmol', ''):>6}"
+                f"[{i}/{len(todo)}] {row['name']:<22} exp {row.get('exp_kjmol', ''):>5}  MMFF94 {row.get('mmff94_dE_kjmol', ''):>6}"
                 f"  GFN2 {row.get('gfn2_dE_kjmol', ''):>6}  GFN2/ALPB(water) {row.get('gfn2_alpb_water_dE_kjmol', ''):>6}"
-                f"  {row['seconds']} s  {row['status']}",
+                f"  {row.get('seconds', '')} s  {row['status']}",
                 flush=True,
             )
 
