@@ -161,7 +161,13 @@ class ChairPair:
         return self.chairs[chair][0]
 
     def axial_chair(self, atom: int) -> int:
-        """The chair (0/1) in which exocyclic ``atom`` is axial, from the face convention."""
+        """The chair (0/1) in which exocyclic ``atom`` is axial, from the face convention.
+
+        Only for a substituent with a fixed face (on a ring atom with two exocyclic
+        neighbours); one on a ring N takes either position by N inversion.
+        """
+        if atom not in self.faces:
+            raise ValueError(f"atom {atom} has no fixed face (a substituent on a ring N inverts)")
         k, f = self._position(atom), self.faces[atom]
         return 0 if (k % 2 == 0) == (f == "up") else 1
 
