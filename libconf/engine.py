@@ -187,6 +187,14 @@ class _RingModel:
         for n, s in enumerate(self.sites):
             by_atom.setdefault(s.k, []).append(n)
         self.base_faces = [s.sub.face for s in self.sites]
+        # Bonds held by a short bridge sit on one face of the ring by geometry (a cage has
+        # no stereo to choose there): put them all on the face a given one has, else up.
+        held = [n for n, s in enumerate(self.sites) if s.constrained]
+        if held:
+            face = next((self.base_faces[n] for n in held if self.base_faces[n] in ("up", "down")), "up")
+            for n in held:
+                if self.base_faces[n] == "unassigned":
+                    self.base_faces[n] = face
         has_fixed = any(f in ("up", "down") for f in self.base_faces)
         variables = []
         for _, ns in sorted(by_atom.items()):

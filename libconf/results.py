@@ -193,7 +193,10 @@ class MoleculeResult:
     def n_axial_major(self) -> float:
         if not self.rings:
             return math.nan
-        return float(sum(s.axial_fraction or 0.0 for r in self.rings for s in r.substituents))
+        # ring bonds of a fused, bridging or spiro partner ring (two attachments) are not groups
+        return float(
+            sum(s.axial_fraction or 0.0 for r in self.rings for s in r.substituents if s.group.count("*") == 1)
+        )
 
     @property
     def n_stereo_undefined_rings(self) -> int:
