@@ -185,3 +185,23 @@ def axial_minus_equatorial(
     ee = [o.result.energy_eh for o in equatorial if o.usable]
     delta = (min(ea) - min(ee)) * HARTREE_KJ if ea and ee else None
     return AxialEquatorial(delta, axial, equatorial, solvent)
+
+
+def single_point_delta(
+    pair: ChairPair, atom: int, n_best: int | None = None, solvent: str | None = None
+) -> float:
+    """GFN2-xTB ΔE (kJ/mol) from single points on the MMFF94 geometries, without re-optimising.
+
+    The cheap variant: each chair's energy is the lowest single point over its ``n_best``
+    conformers (None: all). Compare with :func:`axial_minus_equatorial` to see what the
+    re-optimisation is worth.
+    """
+    numbers = np.array([a.GetAtomicNum() for a in pair.mol.GetAtoms()])
+    charge = _charge(pair.mol)
+    ax = pair.axial_chair(atom)
+    best = {}
+    for c in (ax, 1 - ax):
+        best[c] = min(
+            single_point(numbers, conf.positions, charge, solvent)[0] for conf in pair.chairs[c][:n_best]
+        )
+    return (best[ax] - best[1 - ax]) * HARTREE_KJ
