@@ -93,3 +93,17 @@ def test_ids_cannot_steer_where_files_go(tmp_path):
     assert created and all(out in p.parents or p == out for p in created)
     got = pd.read_parquet(out / "molecules")["mol_id"].tolist()
     assert got == ids  # stored as data, byte for byte
+
+
+def test_hostile_csv_ids_come_back_intact(tmp_path):
+    # quotes, a real line break inside a quoted field, a NUL byte and a 1 MB id
+    big = "x" * 1_000_000
+    ids = ['say "hi"', "two\nlines", "nul\x00byte", big]
+    lines = ["smiles,id"] + [f'CC1CCCCC1,"{i.replace(chr(34), chr(34) * 2)}"' for i in ids]
+    src = tmp_path / "hostile.csv"
+    src.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    out = tmp_path / "run"
+    summary = libconf.annotate([str(src)], str(out), jobs=1)
+    got = pd.read_parquet(out / "molecules")["mol_id"].tolist()
+    assert summary["records"] == 4
+    assert got == ids
