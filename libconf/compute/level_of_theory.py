@@ -21,7 +21,7 @@ import sys
 import time
 from pathlib import Path
 
-GENERATOR = "libconf.compute.level_of_theory 4"  # bump when a change alters the numbers
+GENERATOR = "libconf.compute.level_of_theory 5"  # bump when a change alters the numbers
 GROUPS = Path(__file__).resolve().parents[2] / "datasets" / "computed" / "level_of_theory_groups.csv"
 SEED = 20261201
 N_CONFORMERS = 50
@@ -35,7 +35,6 @@ MIN_ABS_A = 1.0  # kJ/mol: smaller A-values are within experimental scatter of z
 COLUMNS = [
     "group",
     "name",
-    "ref_row",
     "exp_kjmol",
     "exp_range_kjmol",
     "exp_water_kjmol",
@@ -97,10 +96,7 @@ def compute_group(row: dict, seed: int = SEED) -> dict:
     from .xtb import axial_minus_equatorial, single_point_delta
 
     t0 = time.time()
-    out = {
-        k: row.get(k, "")
-        for k in ("group", "name", "ref_row", "exp_kjmol", "exp_range_kjmol", "exp_water_kjmol")
-    }
+    out = {k: row.get(k, "") for k in ("group", "name", "exp_kjmol", "exp_range_kjmol", "exp_water_kjmol")}
     out.update(exp_source=row["source"], exp_flag=row["flag"], settings=settings_string(seed))
     notes = []
     try:
