@@ -65,3 +65,17 @@ def test_audit_detects_an_injected_wrong_prediction(run_dir, tmp_path):
 def test_audit_refuses_a_directory_that_is_not_a_run(tmp_path):
     with pytest.raises(AuditError, match="manifest.json"):
         audit(tmp_path, out=io.StringIO(), progress=False)
+
+
+def test_audit_at_gfn2_xtb_agrees_on_methylcyclohexane(tmp_path):
+    # GFN2-xTB (tblite) puts the methyl equatorial (about 6 kJ/mol; datasets/computed/),
+    # experiment 7.3 kJ/mol (Wiberg et al. 1999)
+    pytest.importorskip("tblite.interface", reason="tblite is not installed (pip install tblite)")
+    src = tmp_path / "one.smi"
+    src.write_text("CC1CCCCC1 methylcyclohexane\n")
+    out = tmp_path / "run"
+    libconf.annotate([str(src)], str(out), jobs=1)
+    s = audit(out, sample=1, n_conformers=4, level="xtb", out=io.StringIO(), progress=False)
+    assert s["computed"] == 1
+    assert s["preferred_chair_agreement"] == 1.0
+    assert s["level"].startswith("GFN2-xTB")
