@@ -142,7 +142,9 @@ def test_the_two_diastereomers_are_one_cis_and_one_trans():
 
 
 def test_gfn2_xtb_gradient_shortens_a_stretched_bond():
-    xtb = pytest.importorskip("tblite.interface", reason="tblite (optional [train] extra) not installed")
+    xtb = pytest.importorskip(
+        "tblite.interface", reason="tblite (optional [train] extra) not importable", exc_type=ImportError
+    )
     del xtb
     from libconf.compute.xtb import single_point
 
