@@ -195,7 +195,9 @@ class MoleculeResult:
             return math.nan
         # ring bonds of a fused, bridging or spiro partner ring (two attachments) are not groups
         return float(
-            sum(s.axial_fraction or 0.0 for r in self.rings for s in r.substituents if s.group.count("*") == 1)
+            sum(
+                s.axial_fraction or 0.0 for r in self.rings for s in r.substituents if s.group.count("*") == 1
+            )
         )
 
     @property
