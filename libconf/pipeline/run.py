@@ -563,7 +563,7 @@ def _connect(scheduler: Any) -> tuple[Any, bool]:
         client = Client(address, timeout=DASK_CONNECT_TIMEOUT_S, set_as_default=False)
     except ValueError as exc:  # unknown scheme, malformed address
         raise UsageError(f"--scheduler {address}: {exc}") from exc
-    except (OSError, TimeoutError) as exc:
+    except Exception as exc:  # OSError, TimeoutError, and whatever else a failed connect raises
         raise FatalError(
             f"cannot reach the Dask scheduler at {address} ({type(exc).__name__}: {exc}); start one "
             "with `dask scheduler` and workers with `dask worker ADDRESS`, or check the address"
