@@ -37,19 +37,10 @@ import pandas as pd
 from sklearn.base import BaseEstimator, TransformerMixin
 from sklearn.utils.validation import check_is_fitted
 
+from .results import MoleculeResult
+
 #: Molecule-level columns of the ``molecules`` table, in this order.
-MOLECULE_FEATURES = (
-    "n_sat6_rings",
-    "n_locked_rings",
-    "locked_scaffold",
-    "max_dG_flip_kjmol",
-    "min_dG_flip_kjmol",
-    "max_barrier_kjmol",
-    "min_barrier_kjmol",
-    "axial_strain_kjmol",
-    "n_axial_major",
-    "n_stereo_undefined_rings",
-)
+MOLECULE_FEATURES = MoleculeResult.COLUMNS
 FEATURE_NAMES = (*MOLECULE_FEATURES, "has_sat6_ring")
 #: Columns with no value for a molecule without a ring: filled with ``fill_value``.
 ENERGY_FEATURES = tuple(c for c in MOLECULE_FEATURES if c.endswith("_kjmol"))
