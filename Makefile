@@ -20,8 +20,8 @@ demo: $(STAMP)
 	$(BIN)/python datasets/demo/run_demo.py $(DEMO_OUT)
 
 lint: $(STAMP)
-	$(BIN)/python -m ruff check libconf tests benchmarks
-	$(BIN)/python -m ruff format --check libconf tests benchmarks
+	$(BIN)/python -m ruff check libconf tests benchmarks examples
+	$(BIN)/python -m ruff format --check libconf tests benchmarks examples
 
 bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_analyze.py
