@@ -456,6 +456,19 @@ class _Executor:
     def _pool(self, workers: int):
         return self._get(workers, timeout=60)
 
+    def _submit(self, chunk: int, records: list[Record]):
+        return self._pool(self.jobs).submit(analyse_chunk, chunk, records, self.options, self.analyzer)
+
+    def _fill(self, source: Iterator[tuple[int, list[Record]]], pending: collections.deque) -> bool:
+        """Top the window of chunks in flight up; False once the source is exhausted."""
+        while len(pending) < self.window:
+            try:
+                chunk, records = next(source)
+            except StopIteration:
+                return False
+            pending.append((chunk, records, self._submit(chunk, records)))
+        return True
+
     def map(self, chunks: Iterator[tuple[int, list[Record]]]) -> Iterator[ChunkResult]:
         pending: collections.deque = collections.deque()
         try:
@@ -469,16 +482,9 @@ class _Executor:
         from joblib.externals.loky.process_executor import BrokenProcessPool
 
         source = iter(chunks)
-        exhausted = False
+        more = True
         while True:
-            while not exhausted and len(pending) < self.window:
-                try:
-                    chunk, records = next(source)
-                except StopIteration:
-                    exhausted = True
-                    break
-                fut = self._pool(self.jobs).submit(analyse_chunk, chunk, records, self.options, self.analyzer)
-                pending.append((chunk, records, fut))
+            more = more and self._fill(source, pending)
             if not pending:
                 return
             chunk, records, fut = pending[0]
@@ -520,22 +526,28 @@ class _Executor:
         for rec in records:
             one = self._run_alone(chunk, [rec])
             if isinstance(one, str):
-                failed = rec._replace(
-                    kind="error",
-                    text="",
-                    raw=rec.raw or truncate_raw(rec.text),
-                    reason=one,
-                    stage="analyse",
-                )
-                one = analyse_chunk(chunk, [failed], self.options, self.analyzer)
-                key = "timeouts" if "could not be interrupted" in failed.reason else "internal_errors"
-                one.counts[key] = 1
+                key = "timeouts" if "could not be interrupted" in one else "internal_errors"
+                one = self._error_row(chunk, rec, one, key)
             parts.append(one)
-        tables = {t: pa.concat_tables([p.tables[t] for p in parts]) for t in TABLES}
-        counts: collections.Counter = collections.Counter()
-        for p in parts:
-            counts.update(p.counts)
-        return ChunkResult(chunk, tables, dict(counts))
+        return _merge(chunk, parts)
+
+    def _error_row(self, chunk: int, rec: Record, reason: str, count_key: str) -> ChunkResult:
+        """A record that took its worker down, as an ``analyse`` error row."""
+        failed = rec._replace(
+            kind="error", text="", raw=rec.raw or truncate_raw(rec.text), reason=reason, stage="analyse"
+        )
+        one = analyse_chunk(chunk, [failed], self.options, self.analyzer)
+        one.counts[count_key] = 1
+        return one
+
+
+def _merge(chunk: int, parts: list[ChunkResult]) -> ChunkResult:
+    """One chunk's result from the results of its pieces, in order."""
+    tables = {t: pa.concat_tables([p.tables[t] for p in parts]) for t in TABLES}
+    counts: collections.Counter = collections.Counter()
+    for p in parts:
+        counts.update(p.counts)
+    return ChunkResult(chunk, tables, dict(counts))
 
 
 # --- execution on a Dask cluster ---------------------------------------------------------
@@ -679,15 +691,9 @@ class _DaskExecutor(_Executor):
         from distributed import KilledWorker
 
         source = iter(chunks)
-        exhausted = False
+        more = True
         while True:
-            while not exhausted and len(pending) < self.window:
-                try:
-                    chunk, records = next(source)
-                except StopIteration:
-                    exhausted = True
-                    break
-                pending.append((chunk, records, self._submit(chunk, records)))
+            more = more and self._fill(source, pending)
             if not pending:
                 return
             chunk, records, fut = pending[0]
@@ -715,22 +721,12 @@ class _DaskExecutor(_Executor):
                 # Alone this time: it may only have been queued on the worker that died.
                 parts.append(self._submit(chunk, [rec]).result())
             except KilledWorker:
-                failed = rec._replace(
-                    kind="error",
-                    text="",
-                    raw=rec.raw or truncate_raw(rec.text),
-                    reason="the analysis crashed its worker process on this record (a fault in "
-                    "native code, or too much memory); please report it with the raw record",
-                    stage="analyse",
+                reason = (
+                    "the analysis crashed its worker process on this record (a fault in "
+                    "native code, or too much memory); please report it with the raw record"
                 )
-                one = analyse_chunk(chunk, [failed], self.options, self.analyzer)
-                one.counts["internal_errors"] = 1
-                parts.append(one)
-        tables = {t: pa.concat_tables([p.tables[t] for p in parts]) for t in TABLES}
-        counts: collections.Counter = collections.Counter()
-        for p in parts:
-            counts.update(p.counts)
-        return ChunkResult(chunk, tables, dict(counts))
+                parts.append(self._error_row(chunk, rec, reason, "internal_errors"))
+        return _merge(chunk, parts)
 
 
 def _progress_bar(enabled: bool, total: int | None):
