@@ -12,7 +12,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from libconf.pipeline.failures import FatalError
-from libconf.results import MoleculeResult, RingResult
+from libconf.results import MoleculeResult, RingResult, SubstituentResult
 
 TABLES = ("molecules", "rings", "substituents", "errors")
 
@@ -77,17 +77,7 @@ COLUMN_TYPES: dict[str, pa.DataType] = {
 #: Columns of each table after the three key columns, in order.
 MOLECULE_COLUMNS = ("smiles", "n_heavy_atoms", *MoleculeResult.COLUMNS)
 RING_COLUMNS = tuple(RingResult.COLUMNS)
-SUBSTITUENT_COLUMNS = (
-    "ring_id",
-    "ring_atom",
-    "position",
-    "first_atom",
-    "group",
-    "face",
-    "axial_fraction",
-    "a_value_kjmol",
-    "a_value_source",
-)
+SUBSTITUENT_COLUMNS = tuple(SubstituentResult.COLUMNS)
 ERROR_COLUMNS = ("reason", "raw", "stage")
 
 
