@@ -5,7 +5,7 @@ BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed-stamp
 DEMO_OUT ?= demo-run
 
-.PHONY: test demo lint bench clean
+.PHONY: test demo train lint bench clean
 
 $(STAMP): pyproject.toml requirements-lock.txt
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
@@ -18,6 +18,11 @@ test: $(STAMP)
 
 demo: $(STAMP)
 	$(BIN)/python datasets/demo/run_demo.py $(DEMO_OUT)
+
+# TRAIN_COMPUTE=N first computes (or resumes) N model compounds at GFN2-xTB (~6 s each on 2 cores)
+TRAIN_COMPUTE ?= 0
+train: $(STAMP)
+	$(BIN)/libconf train --compute $(TRAIN_COMPUTE)
 
 lint: $(STAMP)
 	$(BIN)/python -m ruff check libconf tests benchmarks examples

@@ -1,4 +1,4 @@
-"""Command line: `libconf explain`, `libconf annotate`."""
+"""Command line: `libconf explain`, `annotate`, `audit`, `report`, `train`."""
 
 from __future__ import annotations
 
@@ -97,15 +97,64 @@ def build_parser() -> argparse.ArgumentParser:
     )
     rep.add_argument("run_dir", metavar="DIR", help="the --out directory of `libconf annotate`")
     rep.add_argument("-o", "--output", metavar="FILE.html", help="where to write (default: DIR/report.html)")
+    tr = sub.add_parser(
+        "train",
+        help="regenerate computed chair energies (optional) and refit the A-value model",
+        description="Refit the A-value regression model on the tabulated A-values and the computed "
+        "GFN2-xTB chair energies in datasets/computed; with --compute N, first compute (or resume) "
+        "both chairs of the N most frequent harvested model compounds. Writes models/"
+        "a_value_model.json and its SHA-256 in models/SHA256SUMS.",
+    )
+    tr.add_argument(
+        "--compute",
+        type=int,
+        default=0,
+        metavar="N",
+        help="first compute or resume the N most frequent model compounds at GFN2-xTB (slow: "
+        "about 6 s each on 2 cores); 0 (default) refits on the data already computed",
+    )
+    tr.add_argument(
+        "--jobs", type=int, default=2, metavar="N", help="worker processes for --compute (default 2)"
+    )
+    tr.add_argument(
+        "--chairs",
+        metavar="CSV",
+        help="computed chair energies (default datasets/computed/chair_energies.csv)",
+    )
+    tr.add_argument("--out", metavar="DIR", help="folder for the model file (default models/)")
+    tr.add_argument(
+        "--metrics-only", action="store_true", help="cross-validate and print the metrics; write nothing"
+    )
     return parser
 
 
+def run_train(args) -> int:
+    from .model import train
+
+    chairs = args.chairs or str(train.COMPUTED / "chair_energies.csv")
+    if args.compute:
+        from .compute import generate
+
+        rc = generate.main(
+            ["--top", str(args.compute), "--level", "xtb", "--out", chairs, "--jobs", str(args.jobs)]
+        )
+        if rc:
+            return rc
+    argv = ["--chairs", chairs] + (["--out", args.out] if args.out else [])
+    return train.main(argv + (["--metrics-only"] if args.metrics_only else []))
+
+
 def run_explain(args) -> int:
+    from .model.artefact import ModelFileError
+
     try:
         res = analyze(args.smiles, temperature=args.temperature, medium=args.medium)
     except InputError as exc:
         print(f"libconf explain: {exc.reason}", file=sys.stderr)
         return 2
+    except ModelFileError as exc:
+        print(f"libconf explain: {exc}", file=sys.stderr)
+        return 1
     if args.json:
         print(json.dumps(_clean(res.to_dict()), indent=2))
     else:
@@ -157,6 +206,8 @@ def main(argv: list[str] | None = None) -> int:
             return 1
         print(f"report written to {path}")
         return 0
+    if args.command == "train":
+        return run_train(args)
     if args.command == "annotate":
         from .pipeline import cli as pipeline_cli
 

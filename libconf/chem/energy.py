@@ -153,11 +153,14 @@ def _a_value_in_context(
             base.name,
         )
     else:
+        learned = None if partner_ring or not c_atom else _model_value(key, rels)
+        name = "ring bond" if partner_ring else (group_class or "other").replace("_", " ")
+        if learned is not None:
+            return _with_model_value(P, learned, name, rels, medium, allylic, first_element)
         like = P.group_classes.get(group_class, P.group_classes["other"])
         base = P.base_a_value(like, medium)
         a, u = base.at(temperature), P.constants["group_model_uncertainty"]
         source, ref = "model", f"by analogy with {base.name} ({base.source})"
-        name = "ring bond" if partner_ring else (group_class or "other").replace("_", " ")
         notes.append(f"not tabulated: taken as {base.name}-like")
 
     anomeric = None
@@ -190,6 +193,48 @@ def _a_value_in_context(
         notes.append(f"allylic 1,3-strain with the N-{allylic} group -{strain:.1f} kJ/mol")
         ref += f"; allylic strain: {P.constant_sources.get(f'allylic_strain_{allylic}', '')}"
     return a, u, source, ref, name, tuple(notes)
+
+
+def _model_value(key: str, rels: tuple) -> tuple[float, float, str] | None:
+    """(A, uncertainty, model id) from the regression model, or None outside its reach."""
+    from ..model.artefact import load_model
+    from ..model.features import features
+
+    model = load_model()
+    if model is None:
+        return None
+    x = features(key, rels)
+    if x is None:
+        return None
+    a, u = model.predict(x)
+    return a, u, model.digest[:12]
+
+
+def _with_model_value(
+    P: Parameters, learned, name: str, rels: tuple, medium: str, allylic, first_element: int
+):
+    """A model A-value in context. The model was trained on ring contexts (heteroatom
+    neighbours, anomeric positions) in the gas phase calibrated to experiment, so the
+    context factors are not applied again; in water the anomeric stabilisation is
+    weakened by the tabulated nonpolar-to-water difference; allylic strain, which the
+    bare model compounds do not contain, is added as for tabulated groups."""
+    a, u, tag = learned
+    notes = ["not tabulated: regression model on the group and its ring context"]
+    ref = f"regression model {tag} (GFN2-xTB chair energies calibrated to experiment; models/MODEL_CARD.md)"
+    if medium == "water" and any(el == "O" and d == 1 for el, d in rels):
+        polar = anomeric_term(P, first_element, "water")
+        apolar = anomeric_term(P, first_element, "nonpolar")
+        if polar is not None and apolar is not None and apolar[0] != polar[0]:
+            a += apolar[0] - polar[0]
+            u = math.hypot(u, 1.0)
+            notes.append(f"anomeric effect weakened in water +{apolar[0] - polar[0]:.1f} kJ/mol")
+    if allylic:
+        strain = P.constants.get(f"allylic_strain_{allylic}", P.constants["allylic_strain_other"])
+        a -= strain
+        u = math.hypot(u, 3.0)
+        notes.append(f"allylic 1,3-strain with the N-{allylic} group -{strain:.1f} kJ/mol")
+        ref += f"; allylic strain: {P.constant_sources.get(f'allylic_strain_{allylic}', '')}"
+    return a, u, "model", ref, name, tuple(notes)
 
 
 def _allylic_partner(P: Parameters, mol: Chem.Mol, ring: Ring, k: int, ring_set: set[int]) -> str | None:

@@ -91,8 +91,20 @@ def parameters_digest() -> str:
         return f"unavailable ({type(exc).__name__})"
 
 
+def model_digest() -> str:
+    """sha256 of the A-value model file ("none" without one); a model file that does not
+    match its recorded hash, or is not a model file, is fatal before any record is read."""
+    from libconf.model.artefact import ModelFileError, load_model
+
+    try:
+        model = load_model()
+    except ModelFileError as exc:
+        raise FatalError(str(exc)) from None
+    return "none" if model is None else model.digest
+
+
 #: Versions that must match for a run to be resumed (the rest are recorded only).
-RESUME_VERSIONS = ("libconf", "parameters_sha256")
+RESUME_VERSIONS = ("libconf", "parameters_sha256", "model_sha256")
 
 
 def _versions() -> dict:
@@ -102,6 +114,7 @@ def _versions() -> dict:
     return {
         "libconf": libconf_version(),
         "parameters_sha256": parameters_digest(),
+        "model_sha256": model_digest(),
         "python": platform.python_version(),
         "rdkit": rdkit.__version__,
         "pyarrow": pa.__version__,
@@ -405,7 +418,9 @@ def _check_same_versions(manifest: dict) -> None:
     before, now = manifest.get("versions", {}), _versions()
     for key in RESUME_VERSIONS:
         if before.get(key) != now[key]:
-            what = "libconf" if key == "libconf" else "libconf's parameter tables (sha256)"
+            what = {"libconf": "libconf", "parameters_sha256": "libconf's parameter tables (sha256)"}.get(
+                key, "the A-value model file (sha256)"
+            )
             raise UsageError(
                 f"cannot resume: the run was started with {what} {before.get(key)}, this is "
                 f"{now[key]}; its results would differ, so start again with --overwrite"
@@ -583,8 +598,8 @@ def _connect(scheduler: Any) -> tuple[Any, bool]:
     return client, True
 
 
-def _worker_versions() -> tuple[str, str]:
-    return libconf_version(), parameters_digest()
+def _worker_versions() -> tuple[str, str, str]:
+    return libconf_version(), parameters_digest(), model_digest()
 
 
 def _cluster_threads(client: Any) -> int:
@@ -608,7 +623,8 @@ def _cluster_threads(client: Any) -> int:
         if tuple(theirs) != here:
             raise FatalError(
                 f"Dask worker {worker} runs libconf {theirs[0]} with parameter tables "
-                f"{theirs[1][:12]}…, this process {here[0]} with {here[1][:12]}…; its rows "
+                f"{theirs[1][:12]}… and model {theirs[2][:12]}…, this process {here[0]} with "
+                f"{here[1][:12]}… and {here[2][:12]}…; its rows "
                 "would differ, so install the same version on every worker"
             )
     return max(1, sum(client.nthreads().values()))

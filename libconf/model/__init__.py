@@ -1,0 +1,1 @@
+"""The A-value regression model: features, training and the code-free model file."""

@@ -1,0 +1,298 @@
+"""Fit the A-value model on the project's computed and tabulated data.
+
+Training rows, one per group-in-context on a ring carbon:
+
+* every tabulated experimental A-value (``datasets/parameters/a_values.csv``; medium
+  ``any`` or ``nonpolar``; the row's source travels with it), and
+* every computed chair energy difference (``datasets/computed/chair_energies.csv`` and
+  ``level_of_theory.csv``, GFN2-xTB) whose group-in-context is *not* tabulated,
+  calibrated to the experimental scale with the linear fit of
+  :mod:`libconf.compute.calibrate` (experiment = slope × computed + intercept).
+
+Metrics hold out *whole substituents*: every row of a group (all its contexts, computed
+and experimental) leaves the training set together.
+
+    python -m libconf.model.train                 # fit, write models/, print metrics
+    python -m libconf.model.train --metrics-only  # cross-validation only
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import json
+import math
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+from ..chem.molview import group_key_from_smiles
+from ..compute import calibrate
+from .artefact import FORMAT, MODEL_FILE, models_dir, record_digest, trees_to_dict
+from .features import FEATURE_NAMES, RING_HETERO, features, rels_for
+
+ROOT = Path(__file__).resolve().parents[2]
+COMPUTED = ROOT / "datasets" / "computed"
+PARAMETERS = ROOT / "datasets" / "parameters"
+TRAINER = "libconf.model.train 1"
+SEED = 20261201
+PARAMS = dict(n_estimators=300, max_depth=3, learning_rate=0.05, subsample=0.8, min_samples_leaf=3)
+EXPERIMENT_WEIGHT = 3.0
+
+
+def _float(x):
+    try:
+        v = float(x)
+    except (TypeError, ValueError):
+        return None
+    return v if math.isfinite(v) else None
+
+
+def experimental_rows(path: Path = PARAMETERS / "a_values.csv") -> list[dict]:
+    out = []
+    with open(path, newline="", encoding="utf-8") as fh:
+        for r in csv.DictReader(fh):
+            if r["medium"] not in ("any", "nonpolar") or r["group"].count("*") != 1:
+                continue
+            cls = r["ring_class"]
+            pos = int(r["position"]) if r["position"].strip() else 1
+            if cls not in RING_HETERO or any(h == pos for h, _ in RING_HETERO[cls]):
+                continue  # groups on a ring heteroatom are outside the model's domain
+            key = group_key_from_smiles(r["group"])
+            rels = rels_for(cls, pos)
+            out.append(
+                {
+                    "group": key,
+                    "context": f"{cls} {pos}",
+                    "rels": rels,
+                    "target": float(r["a_value_kjmol"]),
+                    "origin": "experiment",
+                    "source": f"{r['source']} ({r['status']})",
+                    "computed": None,
+                }
+            )
+    # one row per group-in-context: a nonpolar value wins over "any"
+    seen: dict[tuple, dict] = {}
+    for r in out:
+        seen.setdefault((r["group"], r["context"]), r)
+    return list(seen.values())
+
+
+def computed_rows(chairs: Path, level: Path, slope: float, intercept: float) -> list[dict]:
+    out = []
+    with open(level, newline="", encoding="utf-8") as fh:
+        for r in csv.DictReader(fh):
+            v = _float(r.get("gfn2_dE_kjmol"))
+            if v is not None and r.get("status", "ok") == "ok":
+                out.append(("cyclohexane", 1, r["group"], v, r.get("settings", "")))
+    if chairs.exists():
+        with open(chairs, newline="", encoding="utf-8") as fh:
+            for r in csv.DictReader(fh):
+                v = _float(r.get("gfn2_dE_kjmol"))
+                if v is not None and r.get("status") == "ok":
+                    out.append((r["ring_class"], int(r["position"]), r["group"], v, r.get("settings", "")))
+    rows = []
+    for cls, pos, group, v, _settings in out:
+        rels = rels_for(cls, pos)
+        if rels is None:
+            continue
+        rows.append(
+            {
+                "group": group_key_from_smiles(group),
+                "context": f"{cls} {pos}",
+                "rels": rels,
+                "target": slope * v + intercept,
+                "origin": "computed",
+                "source": "GFN2-xTB (tblite), calibrated",
+                "computed": v,
+            }
+        )
+    return rows
+
+
+def dataset(chairs: Path = COMPUTED / "chair_energies.csv", level: Path = COMPUTED / "level_of_theory.csv"):
+    """(rows, X, y, weights, groups, calibration) for training."""
+    cal_rows = calibrate.pairs(level, chairs)
+    cal = calibrate.fit(cal_rows)
+    exp = experimental_rows()
+    tab = {(r["group"], r["context"]) for r in exp}
+    comp = [
+        r
+        for r in computed_rows(chairs, level, cal["slope"], cal["intercept_kjmol"])
+        if (r["group"], r["context"]) not in tab
+    ]
+    # a group-in-context computed twice (the cyclohexane set and the harvest): keep the first
+    seen, rows = set(), []
+    for r in exp + comp:
+        k = (r["group"], r["context"])
+        if k in seen:
+            continue
+        x = features(r["group"], r["rels"])
+        if x is None:
+            continue
+        seen.add(k)
+        r["x"] = x
+        rows.append(r)
+    X = np.array([r["x"] for r in rows], dtype=float)
+    y = np.array([r["target"] for r in rows], dtype=float)
+    w = np.array([EXPERIMENT_WEIGHT if r["origin"] == "experiment" else 1.0 for r in rows])
+    groups = np.array([r["group"] for r in rows])
+    return rows, X, y, w, groups, cal
+
+
+def _fit(X, y, w, loss="squared_error", alpha=0.5, seed=SEED):
+    from sklearn.ensemble import GradientBoostingRegressor
+
+    kw = dict(PARAMS, random_state=seed, loss=loss)
+    if loss == "quantile":
+        kw["alpha"] = alpha
+    return GradientBoostingRegressor(**kw).fit(X, y, sample_weight=w)
+
+
+def _base(m, X):
+    return float(m.init_.predict(X[:1])[0]) if hasattr(m.init_, "predict") else 0.0
+
+
+def grouped_cv(rows, X, y, w, groups, n_splits=10, seed=SEED) -> dict:
+    """Hold out whole substituents; metrics on computed rows and on experimental rows."""
+    from sklearn.model_selection import GroupKFold
+
+    pred = np.full(len(y), np.nan)
+    gkf = GroupKFold(n_splits=n_splits, shuffle=True, random_state=seed)
+    for tr, te in gkf.split(X, y, groups):
+        pred[te] = _fit(X[tr], y[tr], w[tr]).predict(X[te])
+    comp = np.array([r["origin"] == "computed" for r in rows])
+    res = y - pred
+    return {
+        "pred": pred,
+        "n_rows": int(len(y)),
+        "n_groups": int(len(set(groups))),
+        "computed_mae_kjmol": float(np.abs(res[comp]).mean()) if comp.any() else float("nan"),
+        "computed_rmse_kjmol": float(np.sqrt((res[comp] ** 2).mean())) if comp.any() else float("nan"),
+        "experiment_mae_kjmol": float(np.abs(res[~comp]).mean()) if (~comp).any() else float("nan"),
+        "all_mae_kjmol": float(np.abs(res).mean()),
+        "all_rmse_kjmol": float(np.sqrt((res**2).mean())),
+    }
+
+
+def leave_one_group_out_experiment(rows, X, y, w, groups) -> list[dict]:
+    """For every tabulated group on plain cyclohexane: fit without any row of that group
+    (experimental or computed), predict it, compare with experiment."""
+    out = []
+    for i, r in enumerate(rows):
+        if r["origin"] != "experiment" or r["context"] != "cyclohexane 1":
+            continue
+        keep = groups != r["group"]
+        m = _fit(X[keep], y[keep], w[keep])
+        p = float(m.predict(X[i : i + 1])[0])
+        out.append({"group": r["group"], "experiment": r["target"], "predicted": p, "source": r["source"]})
+    return out
+
+
+def fit_final(rows, X, y, w, cal, cv: dict, loo: list[dict]) -> dict:
+    mean = _fit(X, y, w)
+    low = _fit(X, y, w, loss="quantile", alpha=0.16)
+    high = _fit(X, y, w, loss="quantile", alpha=0.84)
+    import rdkit
+    import sklearn
+
+    loo_mae = float(np.mean([abs(r["predicted"] - r["experiment"]) for r in loo])) if loo else None
+    meta = {
+        "trainer": TRAINER,
+        "seed": SEED,
+        "params": PARAMS,
+        "experiment_weight": EXPERIMENT_WEIGHT,
+        "calibration": {
+            k: cal[k]
+            for k in ("n", "slope", "intercept_kjmol", "r2", "mae_raw_kjmol", "mae_calibrated_kjmol")
+        },
+        "n_rows": len(rows),
+        "n_experimental": int(sum(r["origin"] == "experiment" for r in rows)),
+        "n_computed": int(sum(r["origin"] == "computed" for r in rows)),
+        "n_groups": int(len({r["group"] for r in rows})),
+        "cv_held_out_substituents": {k: v for k, v in cv.items() if k != "pred"},
+        "loo_experiment_mae_kjmol": loo_mae,
+        "versions": {
+            "scikit-learn": sklearn.__version__,
+            "rdkit": rdkit.__version__,
+            "python": sys.version.split()[0],
+        },
+        "date": time.strftime("%Y-%m-%d"),
+        "target": "A-value in context (kJ/mol): G(group axial) - G(group equatorial) on a ring carbon",
+    }
+    return {
+        "format": FORMAT,
+        "feature_names": list(FEATURE_NAMES),
+        "mean": trees_to_dict(mean, _base(mean, X), mean.learning_rate),
+        "low": trees_to_dict(low, _base(low, X), low.learning_rate),
+        "high": trees_to_dict(high, _base(high, X), high.learning_rate),
+        "uncertainty_floor": round(cv["computed_mae_kjmol"], 3),
+        "meta": meta,
+    }
+
+
+def write(model: dict, folder: Path) -> tuple[Path, str]:
+    folder.mkdir(parents=True, exist_ok=True)
+    path = folder / MODEL_FILE
+    tmp = path.with_suffix(".json.tmp")
+    tmp.write_text(json.dumps(model, separators=(",", ":"), sort_keys=True) + "\n", encoding="utf-8")
+    tmp.replace(path)
+    return path, record_digest(path)
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(
+        prog="libconf train", description="Refit the A-value model on the computed and tabulated data."
+    )
+    ap.add_argument(
+        "--chairs", type=Path, default=COMPUTED / "chair_energies.csv", help="computed chair energies (CSV)"
+    )
+    ap.add_argument("--level-of-theory", type=Path, default=COMPUTED / "level_of_theory.csv")
+    ap.add_argument("--out", type=Path, default=None, help="folder for the model file (default: models/)")
+    ap.add_argument("--metrics-only", action="store_true", help="cross-validate and print, write nothing")
+    ap.add_argument(
+        "--metrics-json", type=Path, default=None, help="also write the metrics and per-group results here"
+    )
+    args = ap.parse_args(argv)
+    rows, X, y, w, groups, cal = dataset(args.chairs, args.level_of_theory)
+    print(
+        f"{len(rows)} rows ({sum(r['origin'] == 'experiment' for r in rows)} experimental, "
+        f"{sum(r['origin'] == 'computed' for r in rows)} computed), {len(set(groups))} substituents; "
+        f"calibration n={cal['n']} slope {cal['slope']:.3f} intercept {cal['intercept_kjmol']:.2f} kJ/mol",
+        file=sys.stderr,
+    )
+    cv = grouped_cv(rows, X, y, w, groups)
+    print(
+        f"held-out substituents (10-fold by group): MAE vs calibrated computed {cv['computed_mae_kjmol']:.2f} kJ/mol "
+        f"(RMSE {cv['computed_rmse_kjmol']:.2f}); MAE vs experiment {cv['experiment_mae_kjmol']:.2f}",
+        file=sys.stderr,
+    )
+    loo = leave_one_group_out_experiment(rows, X, y, w, groups)
+    big = [r for r in loo if abs(r["experiment"]) >= 1.0]
+    wrong = [r["group"] for r in big if r["predicted"] * r["experiment"] <= 0]
+    loo_mae = float(np.mean([abs(r["predicted"] - r["experiment"]) for r in loo]))
+    print(
+        f"leave-one-substituent-out on the experimental cyclohexane table (n={len(loo)}): MAE {loo_mae:.2f} kJ/mol; "
+        f"signs right {len(big) - len(wrong)}/{len(big)} with |A| >= 1"
+        + (f"; wrong: {', '.join(wrong)}" if wrong else ""),
+        file=sys.stderr,
+    )
+    if args.metrics_json:
+        args.metrics_json.write_text(
+            json.dumps(
+                {"cv": {k: v for k, v in cv.items() if k != "pred"}, "loo": loo, "calibration": cal}, indent=1
+            ),
+            encoding="utf-8",
+        )
+    if args.metrics_only:
+        return 0
+    model = fit_final(rows, X, y, w, cal, cv, loo)
+    path, digest = write(model, args.out or models_dir())
+    print(f"wrote {path} (sha256 {digest})", file=sys.stderr)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
