@@ -20,10 +20,14 @@ For one saturated six-membered ring of a model compound:
    barrier is kept. The last point is released (restraint off, free re-optimisation):
    when it falls into a non-chair minimum, that is the twist-boat energy.
 4. Hysteresis check: the chosen torsion is driven back from the last point over the
-   same targets. ``gfn2_barrier_envelope_kjmol`` is the highest point of the lower
-   envelope of the two sweeps (the lower energy at each target): where the relaxed
-   path jumps, the forward sweep runs on along a metastable branch and the envelope
-   is the closer estimate of the saddle. ``gfn2_barrier_kjmol`` is the forward maximum.
+   same targets. When that backward sweep returns to the starting chair,
+   ``gfn2_barrier_envelope_kjmol`` is the highest point of the lower envelope of the
+   two sweeps (the lower energy at each target): where the relaxed path jumps, the
+   forward sweep runs on along a metastable branch and the envelope is the closer
+   estimate of the saddle. When it does not (``backward_end``: the ring turned the
+   torsion back by pseudorotation inside the twist-boat family and stayed off-chair),
+   the envelope is left empty: the lower branch then belongs to another valley.
+   ``gfn2_barrier_kjmol`` is always the forward maximum.
 
 Checks per path: the driven torsion reached its target within ``MAX_DEVIATION_DEG``
 at every point, no four-coordinate atom changed its handedness (no stereocentre pushed
@@ -53,7 +57,7 @@ from pathlib import Path
 
 import numpy as np
 
-GENERATOR = "libconf.compute.barrier_scan 1"
+GENERATOR = "libconf.compute.barrier_scan 2"
 LEVEL = "GFN2-xTB"
 SEED = 20261201
 N_CONFORMERS = 24
@@ -91,6 +95,7 @@ COLUMNS = [
     "end_kjmol",
     "released_shape",
     "released_kjmol",
+    "backward_end",
     "status",
     "seconds",
     "settings",
@@ -471,7 +476,7 @@ def compute_one(smiles: str, name: str = "", max_torsions: int = MAX_TORSIONS) -
     try:
         mol, ring, ring_class = _ring_and_class(smiles)
         out["ring_class"] = ring_class
-        mh, numbers, charge, (start_pos, start_eh, _label) = lowest_chair(mol, ring)
+        mh, numbers, charge, (start_pos, start_eh, start_label) = lowest_chair(mol, ring)
         from .xtb import BOHR_ANGSTROM
 
         surface = _Surface(numbers, start_pos / BOHR_ANGSTROM, charge, None)
@@ -512,12 +517,19 @@ def compute_one(smiles: str, name: str = "", max_torsions: int = MAX_TORSIONS) -
         out["released_shape"] = "non-chair" if label == TWIST else "chair"
         out["released_kjmol"] = f"{(free.energy_eh - start_eh) * HARTREE_KJ:.2f}"
         back = drive_back(surface, pick, ring)
-        bad_back = [
-            f"backward {m}"
-            for m in _path_checks(Path_(pick.bond, pick.quad, back, start_eh, 0.0), mh, start_pos)
-        ]
-        out["gfn2_barrier_envelope_kjmol"] = f"{envelope_barrier_kj(pick, back):.2f}"
-        notes = pick.notes + bad_back
+        back_label = chair_label(back[-1].positions, ring)
+        back_notes = _path_checks(Path_(pick.bond, pick.quad, back, start_eh, 0.0), mh, start_pos)
+        if back_label == start_label and not back_notes:
+            out["backward_end"] = "start chair"
+            out["gfn2_barrier_envelope_kjmol"] = f"{envelope_barrier_kj(pick, back):.2f}"
+        else:
+            # from the twist-boat side one torsion can also be turned back by pseudorotation inside
+            # the twist-boat family, without returning to the chair: then there is no envelope
+            shape = "non-chair" if back_label == TWIST else "other chair"
+            out["backward_end"] = (
+                "; ".join([shape, *back_notes]) if back_label != start_label else "; ".join(back_notes)
+            )
+        notes = pick.notes
         out["status"] = "ok" if not notes else "check: " + "; ".join(notes)
     except Exception as exc:  # one failed compound is recorded, the run goes on
         out["status"] = f"failed: {type(exc).__name__}: {exc}"[:300]
