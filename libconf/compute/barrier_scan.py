@@ -633,8 +633,6 @@ def engine_vs_scan(csv_path) -> Comparison:
     """
     import libconf
 
-    from ..chem.molview import MolView  # noqa: F401 - same ring search as the scan
-
     rows = []
     with open(csv_path, newline="", encoding="utf-8") as fh:
         for r in csv.DictReader(fh):
