@@ -67,6 +67,24 @@ def twist_boat_energy(
     return max(g, 0.0)
 
 
+def _computed_base_correction(cls: str) -> tuple[float, str, float] | None:
+    """(kJ/mol, reference, uncertainty) for a ring class whose tabulated base barrier is
+    only an estimate by analogy: the model file's correction from GFN2-xTB coordinate
+    driving of the parent ring, scaled to experiment on the classes with measured barriers."""
+    from ..model.artefact import load_model
+
+    model = load_model()
+    b = (model.meta.get("barrier") or {}) if model is not None else {}
+    c = (b.get("corrections") or {}).get(cls)
+    if c is None:
+        return None
+    ref = (
+        f"regression model {model.digest[:12]}: {b['slope']:.2f} x GFN2-xTB driven barrier of the parent "
+        f"ring relative to cyclohexane, fitted on {b['n']} ring classes with measured barriers"
+    )
+    return float(c["correction_kjmol"]), ref, float(b["uncertainty_kjmol"])
+
+
 def barrier_estimate(
     P: Parameters, ring: Ring, sites: list[Site], dg_flip: float, n_cis_fusions: int
 ) -> tuple[float, float, list[Contribution]]:
@@ -75,6 +93,11 @@ def barrier_estimate(
     base = P.barriers.get(cls, P.barriers["other"])
     terms = [Contribution(-1, "base", f"{cls} ring inversion", base["base_kjmol"], base["source"])]
     u2 = base["uncertainty_kjmol"] ** 2
+    if base.get("status") == "estimate":
+        corr = _computed_base_correction(cls)
+        if corr is not None:
+            terms.append(Contribution(-1, "computed_base", f"{cls}: computed correction", corr[0], corr[1]))
+            u2 = corr[2] ** 2
     terms += planar_terms(P, ring, "energy_kjmol")
     for _ in range(n_cis_fusions):
         row = P.barrier_terms["cis_fusion"]

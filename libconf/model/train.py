@@ -80,6 +80,59 @@ def experimental_rows(path: Path = PARAMETERS / "a_values.csv") -> list[dict]:
     return list(seen.values())
 
 
+def excluded(group: str, rels: tuple) -> str | None:
+    """Why a computed row is left out of training, or None. Two kinds of model compound
+    measure something other than the group's A-value in the gas phase:
+
+    * the group holds a saturated six-membered ring with a further substituent: its own
+      ring conformation changes with the chair, so the difference is not one group's;
+    * the group can hydrogen-bond to a ring heteroatom two bonds away (a ring N–H to a
+      carbonyl or ether O of a 3-group, a group N–H/O–H to ring O or N): the axial chair
+      then holds an intramolecular hydrogen bond that gas-phase GFN2-xTB overweights
+      and that solution values would not show (seen for piperidine-3-carboxamides)."""
+    from rdkit import Chem
+
+    m = Chem.MolFromSmiles(group)
+    if m is None:
+        return "unreadable group"
+    for ring in m.GetRingInfo().AtomRings():
+        if len(ring) == 6 and not any(m.GetAtomWithIdx(i).GetIsAromatic() for i in ring):
+            outside = sum(
+                1 for i in ring for nb in m.GetAtomWithIdx(i).GetNeighbors() if nb.GetIdx() not in ring
+            )
+            if outside >= 2:
+                return "substituted saturated ring in the group"
+    star = next(a for a in m.GetAtoms() if a.GetAtomicNum() == 0)
+    d = Chem.GetDistanceMatrix(m)[star.GetIdx()]
+    acceptor = any(a.GetAtomicNum() in (7, 8) and 2 <= d[a.GetIdx()] <= 3 for a in m.GetAtoms())
+    donor = any(
+        a.GetAtomicNum() in (7, 8) and a.GetTotalNumHs() > 0 and 1 <= d[a.GetIdx()] <= 3 for a in m.GetAtoms()
+    )
+    if any(el == "N" and dd == 2 for el, dd in rels) and acceptor:
+        return "possible hydrogen bond to the ring N"
+    if any(el in ("O", "N") and dd == 2 for el, dd in rels) and donor:
+        return "possible hydrogen bond to a ring heteroatom"
+    return None
+
+
+def excluded_counts(chairs: Path, level: Path) -> dict:
+    """How many computed rows each exclusion rule removed (for the model card)."""
+    from collections import Counter
+
+    c = Counter()
+    for path in (level, chairs):
+        if not path.exists():
+            continue
+        with open(path, newline="", encoding="utf-8") as fh:
+            for r in csv.DictReader(fh):
+                if r.get("status", "ok") != "ok" or _float(r.get("gfn2_dE_kjmol")) is None:
+                    continue
+                rels = rels_for(r.get("ring_class", "cyclohexane"), int(r.get("position") or 1))
+                why = "no ring template" if rels is None else excluded(r["group"], rels)
+                c[why or "used"] += 1
+    return dict(c)
+
+
 def computed_rows(chairs: Path, level: Path, slope: float, intercept: float) -> list[dict]:
     out = []
     with open(level, newline="", encoding="utf-8") as fh:
@@ -96,7 +149,7 @@ def computed_rows(chairs: Path, level: Path, slope: float, intercept: float) -> 
     rows = []
     for cls, pos, group, v, _settings in out:
         rels = rels_for(cls, pos)
-        if rels is None:
+        if rels is None or excluded(group, rels):
             continue
         rows.append(
             {
@@ -177,6 +230,23 @@ def grouped_cv(rows, X, y, w, groups, n_splits=10, seed=SEED) -> dict:
     }
 
 
+def twin_scatter(rows, X, y) -> dict:
+    """The computed set's own scatter: for computed rows whose feature row is identical to
+    another row's (groups that differ only beyond three bonds), the mean absolute
+    difference from the mean of their twins. No model on these features can beat it."""
+    from collections import defaultdict
+
+    by = defaultdict(list)
+    for i, x in enumerate(map(tuple, X)):
+        by[x].append(i)
+    errs = []
+    for idx in by.values():
+        for i in idx if len(idx) > 1 else ():
+            if rows[i]["origin"] == "computed":
+                errs.append(abs(y[i] - np.mean([y[j] for j in idx if j != i])))
+    return {"rows": len(errs), "mae_kjmol": float(np.mean(errs)) if errs else float("nan")}
+
+
 def leave_one_group_out_experiment(rows, X, y, w, groups) -> list[dict]:
     """For every tabulated group on plain cyclohexane: fit without any row of that group
     (experimental or computed), predict it, compare with experiment."""
@@ -189,6 +259,76 @@ def leave_one_group_out_experiment(rows, X, y, w, groups) -> list[dict]:
         p = float(m.predict(X[i : i + 1])[0])
         out.append({"group": r["group"], "experiment": r["target"], "predicted": p, "source": r["source"]})
     return out
+
+
+def barrier_corrections(scan_csv: Path = COMPUTED / "barrier_scan.csv") -> dict | None:
+    """Base-barrier corrections for ring classes whose tabulated barrier is an estimate.
+
+    From the GFN2-xTB coordinate-driving barriers of the *parent* rings (no substituent):
+    scan(class) - scan(cyclohexane) is scaled to experiment with a slope through the origin
+    fitted on the classes whose tabulated barrier is measured (status not ``estimate``),
+    experiment(class) - experiment(cyclohexane) = slope x scan difference; an estimated
+    class then gets base = cyclohexane + slope x its scan difference."""
+    from ..engine import analyze
+    from ..parameters import load
+
+    if not scan_csv.exists():
+        return None
+    parents: dict[str, list[float]] = {}
+    with open(scan_csv, newline="", encoding="utf-8") as fh:
+        for r in csv.DictReader(fh):
+            v = _float(r.get("gfn2_barrier_kjmol"))
+            if v is None or r.get("status") != "ok":
+                continue
+            try:
+                res = analyze(r["smiles"])
+            except Exception:
+                continue
+            if (
+                len(res.rings) == 1
+                and not res.rings[0].substituents
+                and res.rings[0].n_planar_ring_atoms == 0
+            ):
+                parents.setdefault(res.rings[0].ring_class, []).append(v)
+    if "cyclohexane" not in parents:
+        return None
+    P = load()
+    ref = float(np.mean(parents["cyclohexane"]))
+    base0 = P.barriers["cyclohexane"]["base_kjmol"]
+    fit_x, fit_y, used = [], [], []
+    for cls, vals in parents.items():
+        row = P.barriers.get(cls)
+        if cls == "cyclohexane" or row is None or row.get("status") == "estimate":
+            continue
+        fit_x.append(np.mean(vals) - ref)
+        fit_y.append(row["base_kjmol"] - base0)
+        used.append(cls)
+    if len(fit_x) < 2:
+        return None
+    x, yv = np.array(fit_x), np.array(fit_y)
+    slope = float((x * yv).sum() / (x * x).sum())
+    resid = yv - slope * x
+    unc = float(max(2.0, np.sqrt((resid**2).mean()) * 1.5))
+    corrections = {}
+    for cls, vals in parents.items():
+        row = P.barriers.get(cls)
+        if row is None or row.get("status") != "estimate":
+            continue
+        new = base0 + slope * (np.mean(vals) - ref)
+        corrections[cls] = {
+            "scan_minus_cyclohexane_kjmol": round(float(np.mean(vals) - ref), 2),
+            "base_kjmol": round(float(new), 2),
+            "correction_kjmol": round(float(new - row["base_kjmol"]), 2),
+        }
+    return {
+        "slope": round(slope, 4),
+        "n": len(used),
+        "fitted_on": sorted(used),
+        "residuals_kjmol": {c: round(float(r), 2) for c, r in zip(used, resid)},
+        "uncertainty_kjmol": round(unc, 2),
+        "cyclohexane_scan_kjmol": round(ref, 2),
+        "corrections": corrections,
+    }
 
 
 def fit_final(rows, X, y, w, cal, cv: dict, loo: list[dict]) -> dict:
@@ -221,6 +361,7 @@ def fit_final(rows, X, y, w, cal, cv: dict, loo: list[dict]) -> dict:
         },
         "date": time.strftime("%Y-%m-%d"),
         "target": "A-value in context (kJ/mol): G(group axial) - G(group equatorial) on a ring carbon",
+        "barrier": barrier_corrections(),
     }
     return {
         "format": FORMAT,
@@ -289,8 +430,17 @@ def main(argv=None) -> int:
     if args.metrics_only:
         return 0
     model = fit_final(rows, X, y, w, cal, cv, loo)
-    path, digest = write(model, args.out or models_dir())
-    print(f"wrote {path} (sha256 {digest})", file=sys.stderr)
+    folder = args.out or models_dir()
+    path, digest = write(model, folder)
+    metrics = {
+        "model_sha256": digest,
+        "meta": model["meta"],
+        "leave_one_substituent_out": loo,
+        "excluded_computed_rows": excluded_counts(args.chairs, args.level_of_theory),
+        "twin_scatter": twin_scatter(rows, X, y),
+    }
+    (folder / "a_value_model.metrics.json").write_text(json.dumps(metrics, indent=1) + "\n", encoding="utf-8")
+    print(f"wrote {path} (sha256 {digest}) and {folder / 'a_value_model.metrics.json'}", file=sys.stderr)
     return 0
 
 
