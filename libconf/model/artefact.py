@@ -163,16 +163,17 @@ def read_model(path: Path, expected_digest: str | None) -> AValueModel:
 
 
 @lru_cache(maxsize=4)
-def _load(folder: str) -> AValueModel | None:
-    p = Path(folder) / MODEL_FILE
+def _load(env_value: str | None) -> AValueModel | None:
+    p = models_dir() / MODEL_FILE
     if not p.is_file():
         return None
     return read_model(p, recorded_digests(p.parent).get(p.name))
 
 
 def load_model() -> AValueModel | None:
-    """The shipped model (None when no model file exists: table and analogy only)."""
-    return _load(str(models_dir()))
+    """The shipped model (None when no model file exists: table and analogy only).
+    Read once per process (per value of LIBCONF_MODELS); no file access after that."""
+    return _load(os.environ.get("LIBCONF_MODELS"))
 
 
 def trees_to_dict(ensemble, base: float, rate: float) -> dict:

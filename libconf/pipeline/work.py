@@ -85,43 +85,77 @@ def _in_worker_process() -> bool:
     return multiprocessing.parent_process() is not None
 
 
+class _Clock:
+    """The running record's deadline, read by the SIGALRM handler."""
+
+    deadline: float | None = None
+
+
+_clock = _Clock()
 _handler_installed = False
 
 
-@contextmanager
-def time_guard(seconds: float | None):
-    """Interrupt the block after ``seconds`` of wall time (main thread only).
+def _on_tick(signum, frame):
+    d = _clock.deadline
+    if d is not None and time.monotonic() > d:
+        _clock.deadline = None
+        raise RecordTimeout()
 
-    SIGALRM interrupts Python code; a single long call inside RDKit's C++ code is
-    interrupted only when it returns to Python, so in a worker process a watchdog
-    thread also ends the process at ``hard_limit(seconds)``.
-    """
-    usable = (
+
+def _guard_usable(seconds: float | None) -> bool:
+    return bool(
         seconds
         and seconds > 0
         and hasattr(signal, "setitimer")
         and threading.current_thread() is threading.main_thread()
     )
-    if not usable:
-        yield
+
+
+@contextmanager
+def chunk_guard(seconds: float | None):
+    """Arm the record time guard for a run of records (main thread only).
+
+    One interval timer ticks every ``seconds / 4`` (at most 0.25 s) for the whole chunk;
+    each record only stores its deadline (a clock read), and the tick handler raises
+    ``RecordTimeout`` once the running record is past it. Setting a timer per record
+    cost more than a whole ring-free molecule. SIGALRM interrupts Python code only: a
+    single long call inside RDKit's C++ code is interrupted when it returns to Python,
+    so in a worker process a watchdog thread also ends the process at
+    ``hard_limit(seconds)``. Yields whether the guard is armed.
+    """
+    if not _guard_usable(seconds):
+        yield False
         return
     global _handler_installed
-    watchdog = _in_worker_process()
     # The handler is installed once per process and left in place (re-installing or
-    # even querying it per record costs more than analysing a ring-free molecule);
-    # only the timer is set per record.
+    # querying it costs more than analysing a small molecule).
     if not _handler_installed:
-        signal.signal(signal.SIGALRM, _on_alarm)
+        signal.signal(signal.SIGALRM, _on_tick)
         _handler_installed = True
-    signal.setitimer(signal.ITIMER_REAL, seconds)
-    if watchdog:
-        _watchdog.arm(seconds)
+    tick = max(0.005, min(0.25, seconds / 4))
+    signal.setitimer(signal.ITIMER_REAL, tick, tick)
     try:
-        yield
+        yield True
     finally:
         signal.setitimer(signal.ITIMER_REAL, 0)
+        _clock.deadline = None
+
+
+@contextmanager
+def time_guard(seconds: float | None):
+    """Interrupt the block after about ``seconds`` of wall time (one-off use)."""
+    with chunk_guard(seconds) as armed:
+        watchdog = armed and _in_worker_process()
+        if armed:
+            _clock.deadline = time.monotonic() + seconds
         if watchdog:
-            _watchdog.disarm()
+            _watchdog.arm(seconds)
+        try:
+            yield
+        finally:
+            _clock.deadline = None
+            if watchdog:
+                _watchdog.disarm()
 
 
 def default_analyzer() -> Callable:
@@ -179,13 +213,18 @@ def analyse_chunk(
     buffers = {name: TableBuffer(name) for name in TABLES}
     counts: Counter = Counter()
     # No log blocking here: the engine reads RDKit's messages to word its reasons.
-    for rec in records:
-        _analyse_record(rec, analyze, options, buffers, counts)
+    with chunk_guard(options.record_timeout) as armed:
+        guard = options.record_timeout if armed else None
+        watchdog = armed and _in_worker_process()
+        for rec in records:
+            _analyse_record(rec, analyze, options, buffers, counts, guard, watchdog)
     counts["records"] = len(records)
     return ChunkResult(chunk, {n: b.to_arrow() for n, b in buffers.items()}, dict(counts))
 
 
-def _analyse_record(rec: Record, analyze, options: AnalysisOptions, buffers, counts) -> None:
+def _analyse_record(
+    rec: Record, analyze, options: AnalysisOptions, buffers, counts, guard: float | None, watchdog: bool
+) -> None:
     key = (rec.mol_id, rec.input_file, rec.input_row)
     raw = rec.raw if rec.raw else truncate_raw(rec.text)
 
@@ -198,7 +237,11 @@ def _analyse_record(rec: Record, analyze, options: AnalysisOptions, buffers, cou
         error(rec.reason, rec.stage)
         return
     try:
-        with time_guard(options.record_timeout):
+        if guard is not None:
+            _clock.deadline = time.monotonic() + guard
+            if watchdog:
+                _watchdog.arm(guard)
+        try:
             target = rec.text if rec.kind == "smiles" else mol_from_molblock(rec.text)
             result = analyze(
                 target,
@@ -208,6 +251,11 @@ def _analyse_record(rec: Record, analyze, options: AnalysisOptions, buffers, cou
                 max_stereo_assignments=options.max_stereo_assignments,
             )
             rows = _result_rows(result)
+        finally:
+            # a tick that lands here still raises into the handlers below
+            _clock.deadline = None
+            if watchdog:
+                _watchdog.disarm()
     except InputError as exc:
         stage = exc.stage if exc.stage in ("read", "parse", "analyse") else "analyse"
         error(exc.reason, stage)
