@@ -363,25 +363,23 @@ def run(
     print(sel.summary(), flush=True)
     todo = [p for p in sel.picks if p.key not in done]
     print(f"{len(done)} rings already in {out_path}, {len(todo)} to compute", flush=True)
-    new = not out_path.exists()
     out_path.parent.mkdir(parents=True, exist_ok=True)
-    with open(out_path, "a", newline="", encoding="utf-8") as fh:
-        w = csv.DictWriter(fh, fieldnames=COLUMNS)
-        if new:
-            w.writeheader()
-            fh.flush()
-        for i, p in enumerate(todo, 1):
-            if stop_at is not None and time.time() >= stop_at:
-                print("stop time reached; resume with the same command", flush=True)
-                break
-            row = compute_one(p, settings, seed)
-            w.writerow(row)
-            fh.flush()
-            print(
-                f"[{i}/{len(todo)}] {row['id']} ring {row['ring_index']} dG_flip {row['engine_dG_flip_kjmol']} "
-                f"gfn2 {row['gfn2_dE_minor_minus_major_kjmol'] or '-'} {row['status']} {row['seconds']} s",
-                flush=True,
-            )
+    if not out_path.exists():
+        with open(out_path, "w", newline="", encoding="utf-8") as fh:
+            csv.DictWriter(fh, fieldnames=COLUMNS).writeheader()
+    for i, p in enumerate(todo, 1):
+        if stop_at is not None and time.time() >= stop_at:
+            print("stop time reached; resume with the same command", flush=True)
+            break
+        row = compute_one(p, settings, seed)
+        # opened per row: a file replaced on disk meanwhile (a checkout) gets the row, not a lost inode
+        with open(out_path, "a", newline="", encoding="utf-8") as fh:
+            csv.DictWriter(fh, fieldnames=COLUMNS).writerow(row)
+        print(
+            f"[{i}/{len(todo)}] {row['id']} ring {row['ring_index']} dG_flip {row['engine_dG_flip_kjmol']} "
+            f"gfn2 {row['gfn2_dE_minor_minus_major_kjmol'] or '-'} {row['status']} {row['seconds']} s",
+            flush=True,
+        )
     return sel
 
 
@@ -431,6 +429,8 @@ class EvalRow:
     dE: float | None  # GFN2-xTB, E(engine's minor) - E(engine's major); None when unmatched
     dE_abs: float
     note: str = ""
+    mmff_1m0: float | None = None  # MMFF94 E(chair 1) - E(chair 0), 3D labels
+    gfn2_1m0: float | None = None  # GFN2-xTB, the same
 
 
 def evaluate(csv_path, medium: str = MEDIUM) -> dict:
@@ -440,6 +440,7 @@ def evaluate(csv_path, medium: str = MEDIUM) -> dict:
     from ..audit import _spearman
 
     rows: list[EvalRow] = []
+    levels: dict[str, tuple[float, float | None]] = {}
     n_total = n_failed = 0
     with open(csv_path, newline="", encoding="utf-8") as fh:
         for r in csv.DictReader(fh):
@@ -448,6 +449,8 @@ def evaluate(csv_path, medium: str = MEDIUM) -> dict:
                 n_failed += 1
                 continue
             d10 = float(r["gfn2_dE_1m0_kjmol"])
+            m10 = float(r["mmff94_dE_1m0_kjmol"]) if r.get("mmff94_dE_1m0_kjmol") else None
+            levels[r["id"]] = (d10, m10)
             ring_atoms = [int(a) for a in r["ring_atoms"].split(";")]
             ring = _engine_ring(libconf.analyze(r["smiles"], medium=medium), ring_atoms)
             if ring is None or ring.dG_flip_kjmol is None:
@@ -474,8 +477,18 @@ def evaluate(csv_path, medium: str = MEDIUM) -> dict:
             rows.append(
                 EvalRow(r["id"], r["smiles"], r["ring_atoms"], dg, d10 if major == 0 else -d10, abs(d10))
             )
+    for x in rows:
+        x.gfn2_1m0, x.mmff_1m0 = levels.get(x.id, (None, None))
     scored = [x for x in rows if x.dE is not None]
     clear = [x for x in rows if x.dE_abs > CLEAR_KJ]
+    by_bin = []
+    for lo, hi in BINS:
+        inb = [x for x in clear if x.dG_flip is not None and lo <= x.dG_flip < hi]
+        ok = [x for x in inb if x.dE is not None and x.dE > 0 and x.dG_flip]
+        by_bin.append((lo, hi, len(inb), len(ok)))
+    # the two 3D levels against each other (no engine involved): same preferred chair?
+    both = [x for x in clear if x.mmff_1m0 is not None]
+    mmff_vs_gfn2 = sum((x.mmff_1m0 > 0) == (x.gfn2_1m0 > 0) for x in both) / len(both) if both else None
     # an unmatched or no-preference ring with a clear computed gap counts as a disagreement
     agree = [x for x in clear if x.dE is not None and x.dE > 0 and x.dG_flip]
     rho = _spearman([x.dG_flip for x in scored], [x.dE for x in scored])
@@ -491,6 +504,8 @@ def evaluate(csv_path, medium: str = MEDIUM) -> dict:
         "agreement": len(agree) / len(clear) if clear else None,
         "spearman": rho,
         "mae_kjmol": mae,
+        "by_bin": by_bin,
+        "mmff94_vs_gfn2_agreement": mmff_vs_gfn2,
         "worst": sorted(scored, key=lambda x: -abs(x.dG_flip - x.dE))[:10],
         "rows_detail": rows,
     }
@@ -511,6 +526,14 @@ def format_evaluation(s: dict) -> str:
         f"{num(None if s['agreement'] is None else 100 * s['agreement'], '.1f')} % of {s['clear_rings']} |",
         f"| Spearman rho, engine dG_flip vs dE(minor - major) | {num(s['spearman'])} |",
         f"| MAE, kJ/mol | {num(s['mae_kjmol'])} |",
+        f"| (no engine) MMFF94 and GFN2-xTB prefer the same chair, rings with \\|dE\\| > {CLEAR_KJ:g} | "
+        f"{num(None if s['mmff94_vs_gfn2_agreement'] is None else 100 * s['mmff94_vs_gfn2_agreement'], '.1f')} % |",
+        "",
+        "Agreement by the engine's dG_flip now (rings with |dE| > 2 kJ/mol):",
+        "",
+        "| engine dG_flip, kJ/mol | rings | agree |",
+        "|---|---|---|",
+        *[f"| {lo:g}-{hi:g} | {n} | {k} |" for lo, hi, n, k in s["by_bin"]],
         "",
         "Worst 10 (engine dG_flip vs GFN2-xTB dE = E(engine's minor chair) - E(its major), kJ/mol):",
         "",
