@@ -1,0 +1,100 @@
+"""External check of the engine against GFN2-xTB on a library training did not use
+(datasets/computed/external_check.csv, made by libconf.compute.external_check).
+
+Fast: only the engine is re-run (libconf.analyze on the stored SMILES); the stored 3D
+energies are read, not recomputed.
+"""
+
+import csv
+from pathlib import Path
+
+import pytest
+
+from libconf.compute.external_check import CLEAR_KJ, COLUMNS, evaluate
+
+CSV = Path(__file__).resolve().parents[1] / "datasets" / "computed" / "external_check.csv"
+
+# Issue #4 thresholds (project requirement, not a literature value).
+MIN_AGREEMENT = 0.90
+MIN_SPEARMAN = 0.80
+# Measured on the committed CSV with the engine of 2026-12-01 (see datasets/computed/README.md).
+MEASURED = "agreement 0.753 (73 rings with |dE| > 2 kJ/mol), Spearman 0.24, medium nonpolar"
+
+
+def _rows():
+    with open(CSV, newline="", encoding="utf-8") as fh:
+        return list(csv.DictReader(fh))
+
+
+def _write(path, rows):
+    with open(path, "w", newline="", encoding="utf-8") as fh:
+        w = csv.DictWriter(fh, fieldnames=COLUMNS)
+        w.writeheader()
+        w.writerows(rows)
+    return path
+
+
+@pytest.fixture(scope="module")
+def measured():
+    return evaluate(CSV)
+
+
+def test_committed_csv_evaluates_to_numbers(measured):
+    assert measured["compared"] >= 20
+    assert measured["clear_rings"] >= 10
+    assert 0.0 <= measured["agreement"] <= 1.0
+    assert -1.0 <= measured["spearman"] <= 1.0
+    assert measured["mae_kjmol"] >= 0.0
+    assert len(measured["worst"]) == 10
+
+
+def test_methylcyclohexane_row_is_read_the_right_way_round(tmp_path):
+    # Methyl prefers equatorial, A = 1.74 kcal/mol (Eliel, Wilen & Mander 1994, ch. 11;
+    # common practice). 3D chair 0 has the methyl (atom 0) axial and lies 7 kJ/mol above
+    # chair 1 (an invented demo value near GFN2-xTB's 6.3, datasets/computed/README.md).
+    row = dict.fromkeys(COLUMNS, "")
+    row.update(
+        id="demo:0",
+        smiles="CC1CCCCC1",
+        ring_index=0,
+        ring_atoms="1;2;3;4;5;6",
+        fixed_face_atoms="0",
+        axial_chair0="0",
+        axial_chair1="",
+        gfn2_dE_1m0_kjmol="-7.0",
+        status="ok",
+    )
+    s = evaluate(_write(tmp_path / "one.csv", [row]))
+    assert s["compared"] == 1 and s["agreement"] == 1.0
+    assert s["rows_detail"][0].dE == pytest.approx(7.0)
+    row["gfn2_dE_1m0_kjmol"] = "7.0"  # the computed reference now says methyl axial
+    s = evaluate(_write(tmp_path / "two.csv", [row]))
+    assert s["agreement"] == 0.0 and s["rows_detail"][0].dE == pytest.approx(-7.0)
+
+
+def test_an_injected_wrong_sign_lowers_the_agreement(measured, tmp_path):
+    rows = _rows()
+    # flip the sign of the computed chair difference of every clear ring (as if the
+    # reference had the chairs the wrong way round)
+    for r in rows:
+        if r["gfn2_dE_1m0_kjmol"] and abs(float(r["gfn2_dE_1m0_kjmol"])) > CLEAR_KJ:
+            r["gfn2_dE_1m0_kjmol"] = str(-float(r["gfn2_dE_1m0_kjmol"]))
+    bad = evaluate(_write(tmp_path / "flipped.csv", rows))
+    assert bad["agreement"] < measured["agreement"]
+    assert bad["spearman"] < measured["spearman"]
+
+
+def test_swapped_chair_signatures_also_lower_the_agreement(measured, tmp_path):
+    rows = _rows()
+    for r in rows:
+        r["axial_chair0"], r["axial_chair1"] = r["axial_chair1"], r["axial_chair0"]
+    bad = evaluate(_write(tmp_path / "swapped.csv", rows))
+    assert bad["agreement"] < measured["agreement"]
+
+
+@pytest.mark.xfail(
+    strict=False, reason=f"issue #4 thresholds not met by the current engine: measured {MEASURED}"
+)
+def test_issue_4_thresholds(measured):
+    assert measured["agreement"] >= MIN_AGREEMENT
+    assert measured["spearman"] >= MIN_SPEARMAN
