@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 
 from libconf import analyze
-from libconf.chem import energy
+from libconf.chem import barrier, energy
 from libconf.model import artefact
 from libconf.model.features import FEATURE_NAMES, features, rels_for
 
@@ -27,6 +27,7 @@ MODELS = ROOT / "models"
 def _fresh_caches():
     artefact._load.cache_clear()
     energy._a_value_in_context.cache_clear()
+    barrier._computed_base_correction.cache_clear()
 
 
 @pytest.fixture

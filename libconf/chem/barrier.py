@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import math
+import os
 from dataclasses import dataclass
+from functools import lru_cache
 
 from ..parameters import Parameters
 from ..results import Contribution
@@ -67,7 +69,8 @@ def twist_boat_energy(
     return max(g, 0.0)
 
 
-def _computed_base_correction(cls: str) -> tuple[float, str, float] | None:
+@lru_cache(maxsize=64)
+def _computed_base_correction(cls: str, models_env: str | None) -> tuple[float, str, float] | None:
     """(kJ/mol, reference, uncertainty) for a ring class whose tabulated base barrier is
     only an estimate by analogy: the model file's correction from GFN2-xTB coordinate
     driving of the parent ring, scaled to experiment on the classes with measured barriers."""
@@ -94,7 +97,7 @@ def barrier_estimate(
     terms = [Contribution(-1, "base", f"{cls} ring inversion", base["base_kjmol"], base["source"])]
     u2 = base["uncertainty_kjmol"] ** 2
     if base.get("status") == "estimate":
-        corr = _computed_base_correction(cls)
+        corr = _computed_base_correction(cls, os.environ.get("LIBCONF_MODELS"))
         if corr is not None:
             terms.append(Contribution(-1, "computed_base", f"{cls}: computed correction", corr[0], corr[1]))
             u2 = corr[2] ** 2

@@ -187,12 +187,16 @@ def _a_value_in_context(
         notes.append(f"anomeric effect -{anomeric[0]:.1f} kJ/mol")
         ref += f"; anomeric term: {anomeric[1]}"
     if allylic:
-        strain = P.constants.get(f"allylic_strain_{allylic}", P.constants["allylic_strain_other"])
-        a -= strain
-        u = math.hypot(u, 3.0)
-        notes.append(f"allylic 1,3-strain with the N-{allylic} group -{strain:.1f} kJ/mol")
-        ref += f"; allylic strain: {P.constant_sources.get(f'allylic_strain_{allylic}', '')}"
+        a, u, ref = _allylic_strain(P, allylic, a, u, ref, notes)
     return a, u, source, ref, name, tuple(notes)
+
+
+def _allylic_strain(P: Parameters, allylic: str, a: float, u: float, ref: str, notes: list[str]):
+    """Allylic 1,3-strain with the group on the planar ring N next to it: (a, u, ref)."""
+    strain = P.constants.get(f"allylic_strain_{allylic}", P.constants["allylic_strain_other"])
+    notes.append(f"allylic 1,3-strain with the N-{allylic} group -{strain:.1f} kJ/mol")
+    ref += f"; allylic strain: {P.constant_sources.get(f'allylic_strain_{allylic}', '')}"
+    return a - strain, math.hypot(u, 3.0), ref
 
 
 def _model_value(key: str, rels: tuple) -> tuple[float, float, str] | None:
@@ -229,11 +233,7 @@ def _with_model_value(
             u = math.hypot(u, 1.0)
             notes.append(f"anomeric effect weakened in water +{apolar[0] - polar[0]:.1f} kJ/mol")
     if allylic:
-        strain = P.constants.get(f"allylic_strain_{allylic}", P.constants["allylic_strain_other"])
-        a -= strain
-        u = math.hypot(u, 3.0)
-        notes.append(f"allylic 1,3-strain with the N-{allylic} group -{strain:.1f} kJ/mol")
-        ref += f"; allylic strain: {P.constant_sources.get(f'allylic_strain_{allylic}', '')}"
+        a, u, ref = _allylic_strain(P, allylic, a, u, ref, notes)
     return a, u, "model", ref, name, tuple(notes)
 
 

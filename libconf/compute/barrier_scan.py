@@ -57,6 +57,8 @@ from pathlib import Path
 
 import numpy as np
 
+from .csvrows import finished_keys
+
 GENERATOR = "libconf.compute.barrier_scan 2"
 LEVEL = "GFN2-xTB"
 SEED = 20261201
@@ -567,16 +569,7 @@ def default_compounds(harvest_path: Path = HARVEST, n_harvest: int = N_HARVEST) 
 
 def read_done(out_path: Path, settings: str) -> set[str]:
     """Smiles already in ``out_path``; refuses a file made with other settings."""
-    done: set[str] = set()
-    if out_path.exists():
-        with open(out_path, newline="", encoding="utf-8") as fh:
-            for r in csv.DictReader(fh):
-                if r.get("settings") != settings:
-                    raise SystemExit(
-                        f"{out_path} was made with other settings ({r.get('settings')}); choose another --out"
-                    )
-                done.add(r["smiles"])
-    return done
+    return finished_keys(out_path, settings, lambda r: r["smiles"])
 
 
 def run(out_path: Path, compounds: list[tuple[str, str]], limit: int | None = None) -> int:

@@ -18,7 +18,6 @@ from __future__ import annotations
 
 import argparse
 import csv
-import math
 import sys
 from pathlib import Path
 
@@ -26,23 +25,16 @@ import numpy as np
 
 from ..chem.molview import group_key_from_smiles
 from ..parameters import load
+from .csvrows import finite_float
 
 HERE = Path(__file__).resolve().parents[2] / "datasets" / "computed"
-
-
-def _float(x):
-    try:
-        v = float(x)
-    except (TypeError, ValueError):
-        return None
-    return v if math.isfinite(v) else None
 
 
 def pairs(level_csv: Path, chairs_csv: Path | None, column: str = "gfn2_dE_kjmol") -> list[dict]:
     out = []
     with open(level_csv, newline="", encoding="utf-8") as fh:
         for r in csv.DictReader(fh):
-            exp, comp = _float(r.get("exp_kjmol")), _float(r.get(column))
+            exp, comp = finite_float(r.get("exp_kjmol")), finite_float(r.get(column))
             if exp is not None and comp is not None:
                 out.append(
                     {
@@ -58,7 +50,7 @@ def pairs(level_csv: Path, chairs_csv: Path | None, column: str = "gfn2_dE_kjmol
         P = load()
         with open(chairs_csv, newline="", encoding="utf-8") as fh:
             for r in csv.DictReader(fh):
-                comp = _float(r.get(column))
+                comp = finite_float(r.get(column))
                 if comp is None or r["ring_class"] == "cyclohexane":
                     continue
                 row = P.a_value(

@@ -53,6 +53,8 @@ import zipfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from .csvrows import finished_keys
+
 CHECKER = "libconf.compute.external_check 1"
 LIBRARY_MEMBER = "moses/dataset/data/test_scaffolds.csv.gz"
 DEFAULT_WHEEL = Path("/tmp/bench/molsets-0.3.1-py3-none-any.whl")
@@ -336,16 +338,7 @@ def compute_one(p: Pick, settings: str, seed: int = SEED) -> dict:
 
 
 def done_keys(out_path: Path, settings: str) -> set[str]:
-    keys: set[str] = set()
-    if out_path.exists():
-        with open(out_path, newline="", encoding="utf-8") as fh:
-            for r in csv.DictReader(fh):
-                if r["settings"] != settings:
-                    raise SystemExit(
-                        f"{out_path} was made with other settings ({r['settings']}); choose another --out"
-                    )
-                keys.add(f"{r['library_row']}:{r['ring_index']}")
-    return keys
+    return finished_keys(out_path, settings, lambda r: f"{r['library_row']}:{r['ring_index']}")
 
 
 def run(

@@ -24,6 +24,8 @@ from pathlib import Path
 
 import pandas as pd
 
+from .csvrows import finished_keys
+
 GENERATOR = "libconf.compute.generate 1"
 HARVEST = Path(__file__).resolve().parents[2] / "datasets" / "computed" / "harvest.parquet"
 SEED = 20261201
@@ -126,15 +128,7 @@ def run(
 
     todo = pick(pd.read_parquet(harvest_path), top)
     settings = settings_string(level)
-    done: set[str] = set()
-    if out_path.exists():
-        with open(out_path, newline="", encoding="utf-8") as fh:
-            for r in csv.DictReader(fh):
-                if r["settings"] != settings:
-                    raise SystemExit(
-                        f"{out_path} was made with other settings ({r['settings']}); choose another --out"
-                    )
-                done.add(r["model_smiles"])
+    done = finished_keys(out_path, settings, lambda r: r["model_smiles"])
     rows = [r for r in todo.to_dict("records") if r["model_smiles"] not in done]
     print(f"{len(todo)} model compounds picked, {len(done)} already done, {len(rows)} to compute", flush=True)
     new = not out_path.exists()

@@ -21,7 +21,6 @@ from __future__ import annotations
 import argparse
 import csv
 import json
-import math
 import sys
 import time
 from pathlib import Path
@@ -30,6 +29,7 @@ import numpy as np
 
 from ..chem.molview import group_key_from_smiles
 from ..compute import calibrate
+from ..compute.csvrows import finite_float
 from .artefact import FORMAT, MODEL_FILE, models_dir, record_digest, trees_to_dict
 from .features import FEATURE_NAMES, RING_HETERO, features, rels_for
 
@@ -40,14 +40,6 @@ TRAINER = "libconf.model.train 1"
 SEED = 20261201
 PARAMS = dict(n_estimators=300, max_depth=3, learning_rate=0.05, subsample=0.8, min_samples_leaf=3)
 EXPERIMENT_WEIGHT = 3.0
-
-
-def _float(x):
-    try:
-        v = float(x)
-    except (TypeError, ValueError):
-        return None
-    return v if math.isfinite(v) else None
 
 
 def experimental_rows(path: Path = PARAMETERS / "a_values.csv") -> list[dict]:
@@ -125,7 +117,7 @@ def excluded_counts(chairs: Path, level: Path) -> dict:
             continue
         with open(path, newline="", encoding="utf-8") as fh:
             for r in csv.DictReader(fh):
-                if r.get("status", "ok") != "ok" or _float(r.get("gfn2_dE_kjmol")) is None:
+                if r.get("status", "ok") != "ok" or finite_float(r.get("gfn2_dE_kjmol")) is None:
                     continue
                 rels = rels_for(r.get("ring_class", "cyclohexane"), int(r.get("position") or 1))
                 why = "no ring template" if rels is None else excluded(r["group"], rels)
@@ -137,13 +129,13 @@ def computed_rows(chairs: Path, level: Path, slope: float, intercept: float) -> 
     out = []
     with open(level, newline="", encoding="utf-8") as fh:
         for r in csv.DictReader(fh):
-            v = _float(r.get("gfn2_dE_kjmol"))
+            v = finite_float(r.get("gfn2_dE_kjmol"))
             if v is not None and r.get("status", "ok") == "ok":
                 out.append(("cyclohexane", 1, r["group"], v, r.get("settings", "")))
     if chairs.exists():
         with open(chairs, newline="", encoding="utf-8") as fh:
             for r in csv.DictReader(fh):
-                v = _float(r.get("gfn2_dE_kjmol"))
+                v = finite_float(r.get("gfn2_dE_kjmol"))
                 if v is not None and r.get("status") == "ok":
                     out.append((r["ring_class"], int(r["position"]), r["group"], v, r.get("settings", "")))
     rows = []
@@ -277,7 +269,7 @@ def barrier_corrections(scan_csv: Path = COMPUTED / "barrier_scan.csv") -> dict 
     parents: dict[str, list[float]] = {}
     with open(scan_csv, newline="", encoding="utf-8") as fh:
         for r in csv.DictReader(fh):
-            v = _float(r.get("gfn2_barrier_kjmol"))
+            v = finite_float(r.get("gfn2_barrier_kjmol"))
             if v is None or r.get("status") != "ok":
                 continue
             try:
