@@ -126,6 +126,53 @@ def parse_smiles(smiles: str) -> Chem.Mol:
     return mol
 
 
+_S = Chem.SanitizeFlags
+# RDKit runs its sanitisation steps in a fixed order; these first five are the ones that
+# can reject a structure (clean-up, valences, rings, Kekulé form). The rest (radicals, aromaticity,
+# conjugation, hybridisation, chirality clean-up, H adjustment) only annotate it, and
+# cost about a third of a parse, so they run only for a molecule that may carry a
+# saturated six-membered ring. The two calls together equal one full SanitizeMol.
+_VALIDATE = (
+    _S.SANITIZE_CLEANUP
+    | _S.SANITIZE_CLEANUP_ORGANOMETALLICS
+    | _S.SANITIZE_PROPERTIES
+    | _S.SANITIZE_SYMMRINGS
+    | _S.SANITIZE_KEKULIZE
+)
+_ANNOTATE = _S.SANITIZE_ALL ^ _VALIDATE
+
+
+def _parse_for_analysis(smiles: str) -> tuple[Chem.Mol, bool]:
+    """(mol, fully sanitised?) for `analyze`: rejected or accepted exactly as
+    `parse_smiles` would, but without the annotating sanitisation steps, which the
+    caller runs (`_finish`) only if the molecule may carry a saturated six-membered
+    ring. A SMILES with explicit H atoms is finished here (removing them needs it)."""
+    if not isinstance(smiles, str):
+        raise InputError(f"expected a SMILES string, got {type(smiles).__name__}")
+    text = smiles.strip()
+    if not text:
+        raise InputError("empty molecule: the SMILES string is blank")
+    mol = Chem.MolFromSmiles(text, sanitize=False)
+    if mol is None:
+        raise _diagnose(text)
+    try:
+        Chem.SanitizeMol(mol, _VALIDATE)
+    except Exception:  # RDKit raises several sanitisation exception types
+        raise _diagnose(text) from None
+    if "H" in text and any(a.GetAtomicNum() == 1 for a in mol.GetAtoms()):
+        _finish(mol, text)
+        return Chem.RemoveHs(mol), True
+    return mol, False
+
+
+def _finish(mol: Chem.Mol, text: str) -> None:
+    """The annotating sanitisation steps on a molecule `_parse_for_analysis` validated."""
+    try:
+        Chem.SanitizeMol(mol, _ANNOTATE)
+    except Exception:
+        raise _diagnose(text) from None
+
+
 # --- one ring -------------------------------------------------------------------
 
 
@@ -494,8 +541,9 @@ def analyze(
                 raise InputError(f"molecule rejected by RDKit: {str(exc).splitlines()[0][:200]}") from None
         Chem.GetSymmSSSR(mol)  # (re)perceive rings the same way as for SMILES input
         smiles = None
+        complete = True
     else:
-        mol = parse_smiles(smiles_or_mol)
+        mol, complete = _parse_for_analysis(smiles_or_mol)
         smiles = smiles_or_mol.strip()
     n_heavy = mol.GetNumAtoms()
     if n_heavy == 0:
@@ -507,8 +555,14 @@ def analyze(
     P = parameters.load()
     th = thresholds or LockThresholds()
     result = MoleculeResult(smiles=smiles, n_heavy_atoms=n_heavy, temperature=temperature, medium=medium)
+    # On the validated, not yet aromatised molecule the test can only say yes more often
+    # (a ring bond that aromaticity would claim still reads as single), never less.
     if not has_saturated_six_ring(mol):
         return result
+    if not complete:
+        _finish(mol, smiles)
+        if not has_saturated_six_ring(mol):
+            return result
     view = MolView(mol)
     rings = saturated_six_rings(mol, view)
     if not rings:

@@ -5,9 +5,10 @@ metrics). Loading it parses JSON and nothing else, so a tampered or foreign file
 cannot run code; in addition its SHA-256 must match the digest recorded in
 ``SHA256SUMS`` beside it, or the load is refused.
 
-Prediction walks the trees in plain Python: the engine memoises one prediction per
-group-in-context, and a library repeats a few thousand of those, so speed per call
-matters little.
+Prediction walks all trees of an ensemble at once with numpy (one step per tree
+level), then adds the leaf values in tree order, so the result is the same float as a
+tree-by-tree walk. The engine memoises one prediction per group-in-context, but in a
+drug-like library most large groups occur once, so a call must stay cheap.
 """
 
 from __future__ import annotations
@@ -18,6 +19,8 @@ import os
 from dataclasses import dataclass
 from functools import lru_cache
 from pathlib import Path
+
+import numpy as np
 
 FORMAT = "libconf-a-value-trees/1"
 MODEL_FILE = "a_value_model.json"
@@ -77,13 +80,86 @@ class Trees:
     trees: tuple  # each (left, right, feature, threshold, value) tuples
 
     def predict(self, x) -> float:
-        s = 0.0
-        for left, right, feature, threshold, value in self.trees:
-            node = 0
-            while left[node] != -1:
-                node = left[node] if x[feature[node]] <= threshold[node] else right[node]
-            s += value[node]
-        return self.base + self.rate * s
+        return self.base + self.rate * self.leaf_sum(np.asarray(x, dtype=float))
+
+    def leaf_sum(self, x: np.ndarray) -> float:
+        """Sum of the leaf values ``x`` reaches, added in tree order."""
+        return float(sum(_leaves(self._packed(), x)))
+
+    def _packed(self):
+        """The trees as padded (tree, node) arrays, a leaf linking to itself, plus flat
+        copies whose links are flat indices (see `_flatten`)."""
+        packed = self.__dict__.get("_arrays")
+        if packed is None:
+            n = max(len(t[0]) for t in self.trees)
+            shape = (len(self.trees), n)
+            left = np.zeros(shape, dtype=np.intp)
+            right = np.zeros(shape, dtype=np.intp)
+            feature = np.zeros(shape, dtype=np.intp)
+            threshold = np.zeros(shape)
+            value = np.zeros(shape)
+            depth = 0
+            for k, (lt, rt, ft, th, va) in enumerate(self.trees):
+                m = len(lt)
+                idx = np.arange(m)
+                lt_, rt_ = np.array(lt), np.array(rt)
+                leaf = lt_ == -1
+                left[k, :m] = np.where(leaf, idx, lt_)
+                right[k, :m] = np.where(leaf, idx, rt_)
+                feature[k, :m] = np.where(leaf, 0, np.array(ft))
+                threshold[k, :m] = th
+                value[k, :m] = va
+                depth = max(depth, _depth(lt, rt))
+            packed = _flatten((left, right, feature, threshold, value, depth))
+            object.__setattr__(self, "_arrays", packed)  # frozen dataclass: a private cache
+        return packed
+
+
+def _leaves(packed, x: np.ndarray) -> list[float]:
+    """The leaf value ``x`` reaches in every tree of ``packed``, in tree order."""
+    depth = packed[5]
+    fl, fr, ff, ft, fv, pos = packed[6]
+    for _ in range(depth):
+        pos = np.where(x[ff[pos]] <= ft[pos], fl[pos], fr[pos])
+    return fv[pos].tolist()
+
+
+def _flatten(packed):
+    """``packed`` plus flat arrays whose links are flat indices (cheaper to gather)."""
+    left, right, feature, threshold, value, depth = packed
+    n = left.shape[1]
+    offset = (np.arange(left.shape[0]) * n)[:, None]
+    flat = (
+        (left + offset).ravel(),
+        (right + offset).ravel(),
+        feature.ravel(),
+        threshold.ravel(),
+        value.ravel(),
+    )
+    return (*packed, (*flat, offset.ravel()))
+
+
+def _stack(ensembles: list[Trees]):
+    """Several ensembles' packed arrays as one (they may differ in node count)."""
+    parts = [e._packed() for e in ensembles]
+    n = max(p[0].shape[1] for p in parts)
+
+    def pad(a, fill_self):
+        if a.shape[1] == n:
+            return a
+        extra = np.zeros((a.shape[0], n - a.shape[1]), dtype=a.dtype)
+        if fill_self:
+            extra[:] = np.arange(a.shape[1], n)
+        return np.hstack([a, extra])
+
+    arrays = [np.vstack([pad(p[i], i < 2) for p in parts]) for i in range(5)]
+    return _flatten((*arrays, max(p[5] for p in parts)))
+
+
+def _depth(left, right, node: int = 0) -> int:
+    if left[node] == -1:
+        return 0
+    return 1 + max(_depth(left, right, left[node]), _depth(left, right, right[node]))
 
 
 @dataclass(frozen=True)
@@ -98,12 +174,21 @@ class AValueModel:
 
     def predict(self, x) -> tuple[float, float]:
         """(A-value in kJ/mol, uncertainty in kJ/mol) for one feature row."""
-        a = self.mean.predict(x)
+        x = np.asarray(x, dtype=float)
         u = self.uncertainty_floor
-        if self.low is not None and self.high is not None:
-            lo, hi = self.low.predict(x), self.high.predict(x)
-            u = max(u, 0.5 * abs(hi - lo))
-        return a, u
+        if self.low is None or self.high is None:
+            return self.mean.predict(x), u
+        # the three ensembles walked in one pass; each summed in its own tree order
+        packed = self.__dict__.get("_stacked")
+        if packed is None:
+            packed = _stack([self.mean, self.low, self.high])
+            object.__setattr__(self, "_stacked", packed)
+        leaves = _leaves(packed, x)
+        k, j = len(self.mean.trees), len(self.mean.trees) + len(self.low.trees)
+        a = self.mean.base + self.mean.rate * sum(leaves[:k])
+        lo = self.low.base + self.low.rate * sum(leaves[k:j])
+        hi = self.high.base + self.high.rate * sum(leaves[j:])
+        return a, max(u, 0.5 * abs(hi - lo))
 
 
 def _trees(d: dict) -> Trees:

@@ -63,7 +63,7 @@ def add_annotate_parser(subparsers) -> argparse.ArgumentParser:
         default=None,
         metavar="N",
         help="records per chunk, the unit of work and of --resume (default: about four "
-        "chunks per worker, 10 to 1000 records)",
+        "chunks per worker, 10 to 2000 records)",
     )
     p.add_argument(
         "--temperature", type=float, default=None, metavar="K", help="temperature in kelvin (default: 298.15)"

@@ -51,7 +51,7 @@ MEDIA = ("nonpolar", "water")
 DEFAULTS: dict[str, Any] = {
     "temperature": 298.15,
     "medium": "water",
-    "chunk_size": 1000,
+    "chunk_size": 2000,
     "smiles_column": None,
     "id_column": None,
     "record_timeout": 10.0,
@@ -148,7 +148,7 @@ def _check_parameters(p: dict) -> dict:
 
 
 def auto_chunk_size(n_records: int, jobs: int) -> int:
-    """Default chunk size: about four chunks per worker, between 10 and 1000 records.
+    """Default chunk size: about four chunks per worker, between 10 and 2000 records.
 
     Small libraries still keep every worker busy; large ones get chunks big enough
     that part files and manifest updates stay few.

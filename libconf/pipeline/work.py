@@ -297,7 +297,22 @@ def _analyse_record(
         counts["locked_scaffolds"] += 1
 
 
+_NO_RING_ROW: dict | None = None
+
+
+def _no_ring_row(result) -> dict:
+    """The molecule row every molecule without a saturated six-membered ring shares
+    (built once per process: most records of a library take this path)."""
+    global _NO_RING_ROW
+    if _NO_RING_ROW is None:
+        _NO_RING_ROW = dict(result.molecule_row())
+    return _NO_RING_ROW
+
+
 def _result_rows(result) -> tuple[dict, list[dict], list[dict]]:
+    if not result.rings:
+        mol_row = {**_no_ring_row(result), "smiles": result.smiles, "n_heavy_atoms": result.n_heavy_atoms}
+        return mol_row, [], []
     mol_row = dict(result.molecule_row())
     mol_row["smiles"] = result.smiles
     mol_row["n_heavy_atoms"] = result.n_heavy_atoms

@@ -1,0 +1,84 @@
+"""`analyze` validates a SMILES with RDKit's rejecting sanitisation steps first and runs
+the annotating ones only for a molecule that may carry a saturated six-membered ring
+(libconf/engine.py, `_parse_for_analysis`). Both halves together must accept and reject
+exactly what one full sanitisation (`parse_smiles`) does, with the same reason, and give
+the same rings."""
+
+import json
+import os
+
+import pytest
+from rdkit import RDConfig
+
+from libconf.engine import analyze, parse_smiles
+from libconf.errors import InputError
+
+TRICKY = [
+    "C1CC",  # unclosed ring
+    "c1ccccc1C(C)(C)(C)(C)C",  # pentavalent carbon
+    "c1cccc1",  # cannot be kekulized
+    "c1cc[n]c1",
+    "c1ccc[nH]1",
+    "C1CCCCC1[H]",
+    "[H]C1CCCCC1",
+    "[2H]C1CCCCC1",  # an H that RemoveHs keeps
+    "C1=CC2CCCCC2C=C1",
+    "C1=CC=C2CCCCC2=C1",  # tetralin in Kekulé form: the fusion bond reads single before aromaticity
+    "c1ccc2c(c1)CCCC2",
+    "O=N(=O)C1CCCCC1",  # nitro group rewritten by the clean-up step
+    "C1CC[N+]CC1",
+    "B1CCCCC1",
+    "C[Si](C)(C)C1CCCCC1",
+    "[Na+].[Cl-]",
+    "F[P-](F)(F)(F)(F)F",
+    "CN(C)C[C-]12C3=C4C5=C1[Fe++]23456789[C-]%10C6=C7C8=C9%10",  # needs the organometallic clean-up
+    "CC(C)(C)[C@H]1CC[C@@H](C)CC1",
+    "C1CCCCC1.c1cccnc1",
+]
+
+
+def _outcome(smiles):
+    try:
+        parse_smiles(smiles)
+        full = None
+    except InputError as exc:
+        full = exc.reason
+    try:
+        res = analyze(smiles)
+        split = None
+    except InputError as exc:
+        res, split = None, exc.reason
+    return full, split, res
+
+
+def _nci():
+    path = os.path.join(RDConfig.RDDataDir, "NCI", "first_5K.smi")
+    if not os.path.exists(path):
+        pytest.skip("RDKit's NCI sample is not installed")
+    with open(path) as fh:
+        return [line.split()[0] for line in fh if line.strip()][:2500]
+
+
+@pytest.mark.parametrize("smiles", TRICKY)
+def test_split_sanitisation_accepts_and_rejects_like_full_sanitisation(smiles):
+    full, split, res = _outcome(smiles)
+    assert split == full
+    if res is not None:
+        ref = analyze(parse_smiles(smiles))
+        assert [r.to_dict() for r in res.rings] == [r.to_dict() for r in ref.rings]
+
+
+def test_split_sanitisation_on_a_real_library():
+    # RDKit's bundled NCI sample (rdkit/Data/NCI/first_5K.smi): open data, mixed quality
+    diffs = []
+    for s in _nci():
+        full, split, res = _outcome(s)
+        if full != split:
+            diffs.append((s, full, split))
+        elif res is not None and res.rings:
+            ref = analyze(parse_smiles(s))
+            a = json.dumps([r.to_dict() for r in res.rings], default=str)
+            b = json.dumps([r.to_dict() for r in ref.rings], default=str)
+            if a != b:
+                diffs.append((s, "rings differ", ""))
+    assert diffs == []
