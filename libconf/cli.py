@@ -111,7 +111,7 @@ def build_parser() -> argparse.ArgumentParser:
         default=0,
         metavar="N",
         help="first compute or resume the N most frequent model compounds at GFN2-xTB (slow: "
-        "about 6 s each on 2 cores); 0 (default) refits on the data already computed",
+        "about 10-20 s each on 2 cores); 0 (default) refits on the data already computed",
     )
     tr.add_argument(
         "--jobs", type=int, default=2, metavar="N", help="worker processes for --compute (default 2)"
@@ -119,7 +119,10 @@ def build_parser() -> argparse.ArgumentParser:
     tr.add_argument(
         "--chairs",
         metavar="CSV",
-        help="computed chair energies (default datasets/computed/chair_energies.csv)",
+        nargs="+",
+        help="computed chair energies, newest first; a compound is taken from the first file that "
+        "has it, --compute writes into the first (default datasets/computed/chair_energies_v2.csv "
+        "then chair_energies.csv)",
     )
     tr.add_argument("--out", metavar="DIR", help="folder for the model file (default models/)")
     tr.add_argument(
@@ -131,16 +134,16 @@ def build_parser() -> argparse.ArgumentParser:
 def run_train(args) -> int:
     from .model import train
 
-    chairs = args.chairs or str(train.COMPUTED / "chair_energies.csv")
+    chairs = args.chairs or [str(p) for p in train.CHAIR_FILES]
     if args.compute:
         from .compute import generate
 
         rc = generate.main(
-            ["--top", str(args.compute), "--level", "xtb", "--out", chairs, "--jobs", str(args.jobs)]
+            ["--top", str(args.compute), "--level", "xtb", "--out", chairs[0], "--jobs", str(args.jobs)]
         )
         if rc:
             return rc
-    argv = ["--chairs", chairs] + (["--out", args.out] if args.out else [])
+    argv = ["--chairs", *chairs] + (["--out", args.out] if args.out else [])
     return train.main(argv + (["--metrics-only"] if args.metrics_only else []))
 
 

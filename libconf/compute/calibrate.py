@@ -25,12 +25,14 @@ import numpy as np
 
 from ..chem.molview import group_key_from_smiles
 from ..parameters import load
-from .csvrows import finite_float
+from .csvrows import finite_float, superseding_rows
 
 HERE = Path(__file__).resolve().parents[2] / "datasets" / "computed"
 
 
-def pairs(level_csv: Path, chairs_csv: Path | None, column: str = "gfn2_dE_kjmol") -> list[dict]:
+def pairs(level_csv: Path, chairs_csv, column: str = "gfn2_dE_kjmol") -> list[dict]:
+    """``chairs_csv``: None, one chair-energy CSV or several, newest first (a compound is
+    taken from the first file that has it)."""
     out = []
     with open(level_csv, newline="", encoding="utf-8") as fh:
         for r in csv.DictReader(fh):
@@ -46,28 +48,28 @@ def pairs(level_csv: Path, chairs_csv: Path | None, column: str = "gfn2_dE_kjmol
                         "source": r.get("exp_source", ""),
                     }
                 )
-    if chairs_csv and chairs_csv.exists():
+    if chairs_csv:
         P = load()
-        with open(chairs_csv, newline="", encoding="utf-8") as fh:
-            for r in csv.DictReader(fh):
-                comp = finite_float(r.get(column))
-                if comp is None or r["ring_class"] == "cyclohexane":
-                    continue
-                row = P.a_value(
-                    group_key_from_smiles(r["group"]), r["ring_class"], int(r["position"]), "nonpolar"
-                )
-                if row is None:
-                    continue
-                out.append(
-                    {
-                        "set": "heterocycle",
-                        "group": r["group"],
-                        "context": f"{r['ring_class']} {r['position']}",
-                        "experiment": row.a_value_kjmol,
-                        "computed": comp,
-                        "source": f"{row.source} ({row.status})",
-                    }
-                )
+        paths = [chairs_csv] if isinstance(chairs_csv, (str, Path)) else list(chairs_csv)
+        for r in superseding_rows(paths):
+            comp = finite_float(r.get(column))
+            if comp is None or r["ring_class"] == "cyclohexane":
+                continue
+            row = P.a_value(
+                group_key_from_smiles(r["group"]), r["ring_class"], int(r["position"]), "nonpolar"
+            )
+            if row is None:
+                continue
+            out.append(
+                {
+                    "set": "heterocycle",
+                    "group": r["group"],
+                    "context": f"{r['ring_class']} {r['position']}",
+                    "experiment": row.a_value_kjmol,
+                    "computed": comp,
+                    "source": f"{row.source} ({row.status})",
+                }
+            )
     return out
 
 
@@ -92,7 +94,13 @@ def fit(rows: list[dict]) -> dict:
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--level-of-theory", type=Path, default=HERE / "level_of_theory.csv")
-    ap.add_argument("--chairs", type=Path, default=HERE / "chair_energies.csv")
+    ap.add_argument(
+        "--chairs",
+        type=Path,
+        nargs="+",
+        default=[HERE / "chair_energies_v2.csv", HERE / "chair_energies.csv"],
+        help="chair-energy CSVs, newest first",
+    )
     ap.add_argument("--column", default="gfn2_dE_kjmol")
     ap.add_argument("--out", type=Path, default=None, help="CSV of the pairs with their residuals")
     args = ap.parse_args(argv)

@@ -30,3 +30,21 @@ def finished_keys(out_path: Path, settings: str, key: Callable[[dict], str]) -> 
                     )
                 done.add(key(r))
     return done
+
+
+def superseding_rows(paths, key: Callable[[dict], str] = lambda r: r["model_smiles"]) -> list[dict]:
+    """Rows of several CSV files of one kind, newest first: a compound (``key``) is taken
+    from the first file that has it, whatever its status there, so a re-computation with
+    better settings replaces the older row and the older file still fills what it has not
+    reached yet. Missing files are skipped."""
+    seen: set[str] = set()
+    out: list[dict] = []
+    for path in paths:
+        path = Path(path)
+        if not path.exists():
+            continue
+        with open(path, newline="", encoding="utf-8") as fh:
+            mine = [r for r in csv.DictReader(fh) if key(r) not in seen]
+        seen.update(key(r) for r in mine)
+        out.extend(mine)
+    return out

@@ -10,7 +10,7 @@ MMFF94, forced flip, rotor scan) and re-optimises them at GFN2-xTB
 Resumable: a compound already in the output (same settings) is skipped, rows are
 appended as compounds finish, so a killed run loses at most the compounds in flight.
 
-    python -m libconf.compute.generate --top 400 --out datasets/computed/chair_energies.csv
+    python -m libconf.compute.generate --top 400 --out datasets/computed/chair_energies_v2.csv
 """
 
 from __future__ import annotations
@@ -26,12 +26,15 @@ import pandas as pd
 
 from .csvrows import finished_keys
 
-GENERATOR = "libconf.compute.generate 1"
+GENERATOR = "libconf.compute.generate 2"
 HARVEST = Path(__file__).resolve().parents[2] / "datasets" / "computed" / "harvest.parquet"
 SEED = 20261201
-N_CONFORMERS = 24
-KEEP = 4
-N_BEST = 3
+# version 1 (datasets/computed/chair_energies.csv) used 24 / 4 / 3: too thin for groups with
+# several rotors (a meta- and a para-fluoroanilide on piperidine C4 came out 6 kJ/mol apart;
+# with 48 / 8 / 8 both give 5.4-5.5). Version 2 writes chair_energies_v2.csv.
+N_CONFORMERS = 48
+KEEP = 8
+N_BEST = 8
 GTOL = 1e-4
 COLUMNS = [
     "model_smiles",

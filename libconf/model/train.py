@@ -29,12 +29,14 @@ import numpy as np
 
 from ..chem.molview import group_key_from_smiles
 from ..compute import calibrate
-from ..compute.csvrows import finite_float
+from ..compute.csvrows import finite_float, superseding_rows
 from .artefact import FORMAT, MODEL_FILE, models_dir, record_digest, trees_to_dict
 from .features import FEATURE_NAMES, RING_HETERO, features, rels_for
 
 ROOT = Path(__file__).resolve().parents[2]
 COMPUTED = ROOT / "datasets" / "computed"
+# newest first: version 2 of the generator (denser sampling) supersedes version 1 compound by compound
+CHAIR_FILES = (COMPUTED / "chair_energies_v2.csv", COMPUTED / "chair_energies.csv")
 PARAMETERS = ROOT / "datasets" / "parameters"
 TRAINER = "libconf.model.train 1"
 SEED = 20261201
@@ -107,37 +109,41 @@ def excluded(group: str, rels: tuple) -> str | None:
     return None
 
 
-def excluded_counts(chairs: Path, level: Path) -> dict:
+def excluded_counts(chairs, level: Path) -> dict:
     """How many computed rows each exclusion rule removed (for the model card)."""
     from collections import Counter
 
     c = Counter()
-    for path in (level, chairs):
-        if not path.exists():
+    rows = []
+    if level.exists():
+        with open(level, newline="", encoding="utf-8") as fh:
+            rows.extend(csv.DictReader(fh))
+    rows.extend(superseding_rows(_paths(chairs)))
+    for r in rows:
+        if r.get("status", "ok") != "ok" or finite_float(r.get("gfn2_dE_kjmol")) is None:
             continue
-        with open(path, newline="", encoding="utf-8") as fh:
-            for r in csv.DictReader(fh):
-                if r.get("status", "ok") != "ok" or finite_float(r.get("gfn2_dE_kjmol")) is None:
-                    continue
-                rels = rels_for(r.get("ring_class", "cyclohexane"), int(r.get("position") or 1))
-                why = "no ring template" if rels is None else excluded(r["group"], rels)
-                c[why or "used"] += 1
+        rels = rels_for(r.get("ring_class", "cyclohexane"), int(r.get("position") or 1))
+        why = "no ring template" if rels is None else excluded(r["group"], rels)
+        c[why or "used"] += 1
     return dict(c)
 
 
-def computed_rows(chairs: Path, level: Path, slope: float, intercept: float) -> list[dict]:
+def _paths(chairs) -> list[Path]:
+    """One path or several (newest first) as a list of paths."""
+    return [Path(chairs)] if isinstance(chairs, (str, Path)) else [Path(p) for p in chairs]
+
+
+def computed_rows(chairs, level: Path, slope: float, intercept: float) -> list[dict]:
     out = []
     with open(level, newline="", encoding="utf-8") as fh:
         for r in csv.DictReader(fh):
             v = finite_float(r.get("gfn2_dE_kjmol"))
             if v is not None and r.get("status", "ok") == "ok":
                 out.append(("cyclohexane", 1, r["group"], v, r.get("settings", "")))
-    if chairs.exists():
-        with open(chairs, newline="", encoding="utf-8") as fh:
-            for r in csv.DictReader(fh):
-                v = finite_float(r.get("gfn2_dE_kjmol"))
-                if v is not None and r.get("status") == "ok":
-                    out.append((r["ring_class"], int(r["position"]), r["group"], v, r.get("settings", "")))
+    for r in superseding_rows(_paths(chairs)):
+        v = finite_float(r.get("gfn2_dE_kjmol"))
+        if v is not None and r.get("status") == "ok":
+            out.append((r["ring_class"], int(r["position"]), r["group"], v, r.get("settings", "")))
     rows = []
     for cls, pos, group, v, _settings in out:
         rels = rels_for(cls, pos)
@@ -157,8 +163,12 @@ def computed_rows(chairs: Path, level: Path, slope: float, intercept: float) -> 
     return rows
 
 
-def dataset(chairs: Path = COMPUTED / "chair_energies.csv", level: Path = COMPUTED / "level_of_theory.csv"):
-    """(rows, X, y, weights, groups, calibration) for training."""
+def dataset(chairs=None, level: Path = COMPUTED / "level_of_theory.csv"):
+    """(rows, X, y, weights, groups, calibration) for training.
+
+    ``chairs``: one chair-energy CSV or several, newest first (default ``CHAIR_FILES``).
+    """
+    chairs = CHAIR_FILES if chairs is None else _paths(chairs)
     cal_rows = calibrate.pairs(level, chairs)
     cal = calibrate.fit(cal_rows)
     exp = experimental_rows()
@@ -380,7 +390,12 @@ def main(argv=None) -> int:
         prog="libconf train", description="Refit the A-value model on the computed and tabulated data."
     )
     ap.add_argument(
-        "--chairs", type=Path, default=COMPUTED / "chair_energies.csv", help="computed chair energies (CSV)"
+        "--chairs",
+        type=Path,
+        nargs="+",
+        default=list(CHAIR_FILES),
+        help="computed chair energies (CSV), newest first: a compound is taken from the first file that has it "
+        "(default: chair_energies_v2.csv, then chair_energies.csv)",
     )
     ap.add_argument("--level-of-theory", type=Path, default=COMPUTED / "level_of_theory.csv")
     ap.add_argument("--out", type=Path, default=None, help="folder for the model file (default: models/)")
