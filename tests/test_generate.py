@@ -40,3 +40,31 @@ def test_run_appends_and_resumes_without_recomputing(tmp_path):
     assert all(r["status"] == "ok" for r in rows)
     # methyl equatorial by MMFF94 in cyclohexane (common practice: A(CH3) ~ 7 kJ/mol)
     assert float(rows[0]["mmff94_dE_kjmol"]) > 3.0
+
+
+def test_a_newer_generator_file_supersedes_the_older_one_compound_by_compound(tmp_path):
+    from libconf.compute.csvrows import superseding_rows
+
+    cols = ["model_smiles", "gfn2_dE_kjmol", "status", "settings"]
+
+    def write(path, rows):
+        with open(path, "w", newline="") as fh:
+            w = csv.writer(fh)
+            w.writerow(cols)
+            w.writerows(rows)
+
+    old, new = tmp_path / "v1.csv", tmp_path / "v2.csv"
+    write(
+        old,
+        [
+            ["A", "1.0", "ok", "generator=1"],
+            ["B", "2.0", "ok", "generator=1"],
+            ["C", "3.0", "ok", "generator=1"],
+        ],
+    )
+    write(new, [["B", "", "failed: no chair", "generator=2"], ["A", "5.0", "ok", "generator=2"]])
+    rows = superseding_rows([new, tmp_path / "missing.csv", old])
+    got = {r["model_smiles"]: (r["gfn2_dE_kjmol"], r["settings"]) for r in rows}
+    # the newer file decides, whatever its status there; the older one fills in C only
+    assert got == {"A": ("5.0", "generator=2"), "B": ("", "generator=2"), "C": ("3.0", "generator=1")}
+    assert len(rows) == 3

@@ -80,6 +80,9 @@ def render(metrics: dict, coverage: str | None, external: str | None) -> str:
         f"| `{r['group']}` | {r['experiment']:.2f} | {r['predicted']:.2f} | {r['predicted'] - r['experiment']:+.2f} | {r['source']} |"
         for r in sorted(loo, key=lambda r: -abs(r["predicted"] - r["experiment"]))
     )
+    by_source = (
+        ", ".join(f"{k} {v}" for k, v in meta.get("computed_rows_by_source", {}).items()) or "not recorded"
+    )
     excl_rows = "\n".join(
         f"| {'kept (tabulated groups-in-context then give way to the table)' if k == 'used' else k} | {v} |"
         for k, v in sorted(excl.items(), key=lambda kv: -kv[1])
@@ -103,11 +106,14 @@ replace experiment.
   (medium `any` or `nonpolar`), each with its source in `a_values.csv`; weight
   {meta["experiment_weight"]:g} each.
 - **Computed rows** ({meta["n_computed"]}): both chairs of small model compounds (the bare ring
-  of the class carrying only that group) from `datasets/computed/chair_energies.csv` (groups
-  harvested from RDKit's NCI subset and the first 200,000 records of the MOSES training split)
-  and `level_of_theory.csv`, GFN2-xTB (tblite), gas phase, re-optimised lowest conformer of
-  each chair; provenance and commands in `datasets/computed/README.md`. Only rows whose group
-  in context is not tabulated are used. Weight 1.
+  of the class carrying only that group; groups harvested from RDKit's NCI subset and the
+  first 200,000 records of the MOSES training split) and `level_of_theory.csv`, GFN2-xTB
+  (tblite), gas phase, lowest re-optimised conformer of each chair. A compound comes from
+  `datasets/computed/chair_energies_v2.csv` (generator 2: 48 embeddings, 8 MMFF94 minima per
+  chair, all re-optimised) where that file has it, otherwise from `chair_energies.csv`
+  (generator 1: 24 / 4 / 3, which misses the best conformer of some flexible groups); rows
+  used by source: {by_source}. Provenance and commands in `datasets/computed/README.md`.
+  Only rows whose group in context is not tabulated are used. Weight 1.
 - **Calibration** of the computed values to the experimental scale, fitted on the n = {cal["n"]}
   pairs where both exist (`datasets/computed/calibration.csv`):
   experiment = {cal["slope"]:.3f} × GFN2-xTB + {cal["intercept_kjmol"]:.2f} kJ/mol,

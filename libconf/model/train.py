@@ -23,6 +23,7 @@ import csv
 import json
 import sys
 import time
+from collections import Counter
 from pathlib import Path
 
 import numpy as np
@@ -139,13 +140,13 @@ def computed_rows(chairs, level: Path, slope: float, intercept: float) -> list[d
         for r in csv.DictReader(fh):
             v = finite_float(r.get("gfn2_dE_kjmol"))
             if v is not None and r.get("status", "ok") == "ok":
-                out.append(("cyclohexane", 1, r["group"], v, r.get("settings", "")))
+                out.append(("cyclohexane", 1, r["group"], v, "level of theory"))
     for r in superseding_rows(_paths(chairs)):
         v = finite_float(r.get("gfn2_dE_kjmol"))
         if v is not None and r.get("status") == "ok":
-            out.append((r["ring_class"], int(r["position"]), r["group"], v, r.get("settings", "")))
+            out.append((r["ring_class"], int(r["position"]), r["group"], v, _generator(r.get("settings", ""))))
     rows = []
-    for cls, pos, group, v, _settings in out:
+    for cls, pos, group, v, made_by in out:
         rels = rels_for(cls, pos)
         if rels is None or excluded(group, rels):
             continue
@@ -158,9 +159,18 @@ def computed_rows(chairs, level: Path, slope: float, intercept: float) -> list[d
                 "origin": "computed",
                 "source": "GFN2-xTB (tblite), calibrated",
                 "computed": v,
+                "generator": made_by,
             }
         )
     return rows
+
+
+def _generator(settings: str) -> str:
+    """``generator N`` from a chair-energy row's settings string."""
+    for part in settings.split(";"):
+        if part.startswith("generator="):
+            return f"generator {part.split('=', 1)[1]}"
+    return "generator ?"
 
 
 def dataset(chairs=None, level: Path = COMPUTED / "level_of_theory.csv"):
@@ -354,6 +364,9 @@ def fit_final(rows, X, y, w, cal, cv: dict, loo: list[dict]) -> dict:
         "n_experimental": int(sum(r["origin"] == "experiment" for r in rows)),
         "n_computed": int(sum(r["origin"] == "computed" for r in rows)),
         "n_groups": int(len({r["group"] for r in rows})),
+        "computed_rows_by_source": dict(
+            sorted(Counter(r["generator"] for r in rows if r["origin"] == "computed").items())
+        ),
         "cv_held_out_substituents": {k: v for k, v in cv.items() if k != "pred"},
         "loo_experiment_mae_kjmol": loo_mae,
         "versions": {
