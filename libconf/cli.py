@@ -121,8 +121,8 @@ def build_parser() -> argparse.ArgumentParser:
         metavar="CSV",
         nargs="+",
         help="computed chair energies, newest first; a compound is taken from the first file that "
-        "has it, --compute writes into the first (default datasets/computed/chair_energies_v2.csv "
-        "then chair_energies.csv)",
+        "has it, --compute writes into the first (default datasets/computed/chair_energies_v3.csv, "
+        "chair_energies_v2.csv, chair_energies.csv)",
     )
     tr.add_argument("--out", metavar="DIR", help="folder for the model file (default models/)")
     tr.add_argument(
@@ -138,8 +138,19 @@ def run_train(args) -> int:
     if args.compute:
         from .compute import generate
 
+        skip = [] if args.chairs else [a for p in train.AS_THOROUGH for a in ("--skip-in", str(p))]
         rc = generate.main(
-            ["--top", str(args.compute), "--level", "xtb", "--out", chairs[0], "--jobs", str(args.jobs)]
+            [
+                "--top",
+                str(args.compute),
+                "--level",
+                "xtb",
+                "--out",
+                chairs[0],
+                "--jobs",
+                str(args.jobs),
+                *skip,
+            ]
         )
         if rc:
             return rc

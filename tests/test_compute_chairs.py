@@ -249,3 +249,28 @@ def test_every_experimental_value_in_the_group_table_names_its_source_and_flag()
         assert float(r["exp_kjmol"]) == pytest.approx(float(r["exp_kcalmol"]) * 4.184, abs=0.06)
         mol, ring, sub = cyclohexyl(r["group"])
         assert mol.GetBondBetweenAtoms(ring[0], sub) is not None
+
+
+def test_prerank_reoptimises_the_conformers_gfn2_xtb_puts_lowest():
+    xtb = pytest.importorskip(
+        "tblite.interface", reason="tblite (optional [train] extra) not importable", exc_type=ImportError
+    )
+    del xtb
+    from libconf.compute.xtb import _charge, reoptimise_chair, single_point
+
+    # (methoxymethyl)cyclohexane: the side-chain rotamers give several minima per chair, and
+    # for some embeddings MMFF94 and GFN2-xTB order a chair's minima differently
+    mol = Chem.MolFromSmiles("COCC1CCCCC1")
+    for seed, chair in ((5, 1), (5, 0), (3, 0), (3, 1), (7, 0), (7, 1), (11, 0), (11, 1)):
+        pair = both_chairs(mol, (3, 4, 5, 6, 7, 8), n_conformers=12, seed=seed, keep=4)
+        confs = pair.chairs[chair]
+        numbers = [a.GetAtomicNum() for a in pair.mol.GetAtoms()]
+        sp = [single_point(numbers, c.positions, _charge(pair.mol))[0] for c in confs]
+        if len(sp) > 1 and int(np.argmin(sp)) != 0:
+            break
+    else:
+        pytest.skip("no embedding where MMFF94's lowest minimum is not GFN2-xTB's")
+    opt = reoptimise_chair(pair, chair, 2, n_best=1, prerank=True)
+    assert len(opt) == 1
+    # the one conformer re-optimised is the single-point lowest, not MMFF94's first
+    assert opt[0].start is confs[int(np.argmin(sp))]

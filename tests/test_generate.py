@@ -68,3 +68,13 @@ def test_a_newer_generator_file_supersedes_the_older_one_compound_by_compound(tm
     # the newer file decides, whatever its status there; the older one fills in C only
     assert got == {"A": ("5.0", "generator=2"), "B": ("", "generator=2"), "C": ("3.0", "generator=1")}
     assert len(rows) == 3
+
+
+def test_compounds_held_by_a_skip_in_file_are_not_recomputed(tmp_path):
+    h = _harvest(tmp_path)
+    earlier = tmp_path / "earlier.csv"
+    run(earlier, top=1, level="mmff", jobs=1, harvest_path=h)  # the most frequent: CC1CCCCC1
+    out = tmp_path / "later.csv"
+    run(out, top=3, level="mmff", jobs=1, harvest_path=h, skip_in=[earlier])
+    with open(out, newline="") as fh:
+        assert [r["model_smiles"] for r in csv.DictReader(fh)] == ["CC1CCNCC1", "OC1CCOCC1"]

@@ -98,7 +98,7 @@ def main(argv=None) -> int:
         "--chairs",
         type=Path,
         nargs="+",
-        default=[HERE / "chair_energies_v2.csv", HERE / "chair_energies.csv"],
+        default=[HERE / "chair_energies_v3.csv", HERE / "chair_energies_v2.csv", HERE / "chair_energies.csv"],
         help="chair-energy CSVs, newest first",
     )
     ap.add_argument("--column", default="gfn2_dE_kjmol")

@@ -10,7 +10,8 @@ MMFF94, forced flip, rotor scan) and re-optimises them at GFN2-xTB
 Resumable: a compound already in the output (same settings) is skipped, rows are
 appended as compounds finish, so a killed run loses at most the compounds in flight.
 
-    python -m libconf.compute.generate --top 400 --out datasets/computed/chair_energies_v2.csv
+    python -m libconf.compute.generate --top 536 --out datasets/computed/chair_energies_v3.csv \
+        --skip-in datasets/computed/chair_energies_v2.csv
 """
 
 from __future__ import annotations
@@ -24,17 +25,21 @@ from pathlib import Path
 
 import pandas as pd
 
-from .csvrows import finished_keys
+from .csvrows import finished_keys, superseding_rows
 
-GENERATOR = "libconf.compute.generate 2"
+GENERATOR = "libconf.compute.generate 3"
 HARVEST = Path(__file__).resolve().parents[2] / "datasets" / "computed" / "harvest.parquet"
 SEED = 20261201
-# version 1 (datasets/computed/chair_energies.csv) used 24 / 4 / 3: too thin for groups with
-# several rotors (a meta- and a para-fluoroanilide on piperidine C4 came out 6 kJ/mol apart;
-# with 48 / 8 / 8 both give 5.4-5.5). Version 2 writes chair_energies_v2.csv.
+# version 1 (datasets/computed/chair_energies.csv) used 24 / 4 / 3, MMFF94's order: too
+# thin for groups with several rotors (a meta- and a para-fluoroanilide on piperidine C4
+# came out 6 kJ/mol apart; the conformer that optimises lowest was often MMFF94's 5th).
+# Version 2 (chair_energies_v2.csv) kept 8 per chair from 48 embeddings and re-optimised
+# all 8. Version 3 (chair_energies_v3.csv) keeps the same 8 but re-optimises only the 4
+# lowest by a GFN2-xTB single point: about half the cost of version 2.
 N_CONFORMERS = 48
 KEEP = 8
-N_BEST = 8
+N_BEST = 4
+PRERANK = True  # order each chair's conformers by GFN2-xTB single point before n_best
 GTOL = 1e-4
 COLUMNS = [
     "model_smiles",
@@ -56,7 +61,7 @@ COLUMNS = [
 def settings_string(level: str) -> str:
     return (
         f"generator={GENERATOR.split()[-1]};level={level};seed={SEED};n_conformers={N_CONFORMERS};"
-        f"keep={KEEP};n_best={N_BEST};gtol={GTOL:g}"
+        f"keep={KEEP};n_best={N_BEST};gtol={GTOL:g}" + (";prerank=gfn2-single-point" if PRERANK else "")
     )
 
 
@@ -101,7 +106,7 @@ def compute_one(row: dict, level: str) -> dict:
         if level == "xtb":
             from .xtb import axial_minus_equatorial
 
-            res = axial_minus_equatorial(pair, atom, n_best=N_BEST, gtol=GTOL)
+            res = axial_minus_equatorial(pair, atom, n_best=N_BEST, gtol=GTOL, prerank=PRERANK)
             ua, ue = res.n_usable
             out["n_axial_usable"], out["n_equatorial_usable"] = ua, ue
             if res.delta_kj is None:
@@ -125,15 +130,25 @@ def pick(harvest: pd.DataFrame, top: int) -> pd.DataFrame:
 
 
 def run(
-    out_path: Path, top: int = 400, level: str = "xtb", jobs: int = 2, harvest_path: Path = HARVEST
+    out_path: Path,
+    top: int = 400,
+    level: str = "xtb",
+    jobs: int = 2,
+    harvest_path: Path = HARVEST,
+    skip_in: list[Path] | None = None,
 ) -> int:
     from joblib import Parallel, delayed
 
     todo = pick(pd.read_parquet(harvest_path), top)
     settings = settings_string(level)
     done = finished_keys(out_path, settings, lambda r: r["model_smiles"])
-    rows = [r for r in todo.to_dict("records") if r["model_smiles"] not in done]
-    print(f"{len(todo)} model compounds picked, {len(done)} already done, {len(rows)} to compute", flush=True)
+    elsewhere = {r["model_smiles"] for r in superseding_rows(skip_in or [])} - done
+    rows = [r for r in todo.to_dict("records") if r["model_smiles"] not in done | elsewhere]
+    print(
+        f"{len(todo)} model compounds picked, {len(done)} already done, {len(elsewhere)} computed in "
+        f"--skip-in files, {len(rows)} to compute",
+        flush=True,
+    )
     new = not out_path.exists()
     os.environ.setdefault("OMP_NUM_THREADS", "1")
     with open(out_path, "a", newline="", encoding="utf-8") as fh:
@@ -161,8 +176,17 @@ def main(argv=None) -> int:
     ap.add_argument("--level", choices=("mmff", "xtb"), default="xtb")
     ap.add_argument("--jobs", type=int, default=2)
     ap.add_argument("--harvest", type=Path, default=HARVEST)
+    ap.add_argument(
+        "--skip-in",
+        type=Path,
+        action="append",
+        default=[],
+        metavar="CSV",
+        help="skip compounds this chair-energy file already holds (e.g. one made by an earlier, "
+        "at least as thorough generator version); repeatable",
+    )
     args = ap.parse_args(argv)
-    return run(args.out, args.top, args.level, args.jobs, args.harvest)
+    return run(args.out, args.top, args.level, args.jobs, args.harvest, args.skip_in)
 
 
 if __name__ == "__main__":

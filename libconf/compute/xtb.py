@@ -138,6 +138,16 @@ def _charge(mol: Chem.Mol) -> int:
     return sum(a.GetFormalCharge() for a in mol.GetAtoms())
 
 
+def _single_point_or_inf(numbers, positions, charge: int, solvent: str | None) -> float:
+    """GFN2-xTB energy (hartree) for ranking; +inf when the SCF fails (ranked last)."""
+    from tblite.exceptions import TBLiteRuntimeError
+
+    try:
+        return single_point(numbers, positions, charge, solvent)[0]
+    except TBLiteRuntimeError:
+        return float("inf")
+
+
 def reoptimise_chair(
     pair: ChairPair,
     chair: int,
@@ -145,10 +155,15 @@ def reoptimise_chair(
     n_best: int | None = None,
     solvent: str | None = None,
     gtol: float = 1e-4,
+    prerank: bool = False,
 ) -> list[ChairOptimum]:
-    """GFN2-xTB re-optimisation of the ``n_best`` lowest MMFF94 conformers of one chair (None: all).
+    """GFN2-xTB re-optimisation of the ``n_best`` lowest conformers of one chair (None: all).
 
-    All by default: the two levels order rotamers differently (seen for OH).
+    All by default: the two levels order rotamers differently (seen for OH). With
+    ``prerank`` the conformers are ordered by a GFN2-xTB single point on their MMFF94
+    geometry first, so ``n_best`` picks GFN2-xTB's lowest rather than MMFF94's (measured
+    on five amides and 2-ethylpiperidine, 10 chairs: the conformer that optimises lowest
+    ranked first by single point in 9, and 4th or 5th by MMFF94 in 5).
     """
     from tblite.exceptions import TBLiteRuntimeError
 
@@ -156,7 +171,10 @@ def reoptimise_chair(
     charge = _charge(pair.mol)
     k = pair._position(atom)
     out = []
-    for conf in pair.chairs[chair][:n_best]:
+    confs = list(pair.chairs[chair])
+    if prerank and n_best is not None and len(confs) > n_best:
+        confs = sorted(confs, key=lambda c: _single_point_or_inf(numbers, c.positions, charge, solvent))
+    for conf in confs[:n_best]:
         before = conf.placements[atom]
         try:
             res = optimise(numbers, conf.positions, charge=charge, solvent=solvent, gtol=gtol)
@@ -171,16 +189,21 @@ def reoptimise_chair(
 
 
 def axial_minus_equatorial(
-    pair: ChairPair, atom: int, n_best: int | None = None, solvent: str | None = None, gtol: float = 1e-4
+    pair: ChairPair,
+    atom: int,
+    n_best: int | None = None,
+    solvent: str | None = None,
+    gtol: float = 1e-4,
+    prerank: bool = False,
 ) -> AxialEquatorial:
     """GFN2-xTB ΔE = E(axial chair) - E(equatorial chair) for exocyclic ``atom``, kJ/mol.
 
     Each chair's energy is the lowest over its ``n_best`` re-optimised conformers that
-    converged and stayed in that chair.
+    converged and stayed in that chair (chosen by GFN2-xTB single points with ``prerank``).
     """
     ax = pair.axial_chair(atom)
-    axial = reoptimise_chair(pair, ax, atom, n_best, solvent, gtol)
-    equatorial = reoptimise_chair(pair, 1 - ax, atom, n_best, solvent, gtol)
+    axial = reoptimise_chair(pair, ax, atom, n_best, solvent, gtol, prerank)
+    equatorial = reoptimise_chair(pair, 1 - ax, atom, n_best, solvent, gtol, prerank)
     ea = [o.result.energy_eh for o in axial if o.usable]
     ee = [o.result.energy_eh for o in equatorial if o.usable]
     delta = (min(ea) - min(ee)) * HARTREE_KJ if ea and ee else None

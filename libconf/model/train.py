@@ -36,8 +36,16 @@ from .features import FEATURE_NAMES, RING_HETERO, features, rels_for
 
 ROOT = Path(__file__).resolve().parents[2]
 COMPUTED = ROOT / "datasets" / "computed"
-# newest first: version 2 of the generator (denser sampling) supersedes version 1 compound by compound
-CHAIR_FILES = (COMPUTED / "chair_energies_v2.csv", COMPUTED / "chair_energies.csv")
+# newest first: a compound is taken from the first file that has it. Generators 2 and 3
+# sample the same way (3 re-optimises the GFN2-xTB-preranked half of what 2 does, and
+# skips what 2 holds); both supersede generator 1's thinner sampling compound by compound.
+CHAIR_FILES = (
+    COMPUTED / "chair_energies_v3.csv",
+    COMPUTED / "chair_energies_v2.csv",
+    COMPUTED / "chair_energies.csv",
+)
+#: files at least as thorough as the current generator: `libconf train --compute` skips their compounds
+AS_THOROUGH = (COMPUTED / "chair_energies_v2.csv",)
 PARAMETERS = ROOT / "datasets" / "parameters"
 TRAINER = "libconf.model.train 1"
 SEED = 20261201
@@ -144,7 +152,9 @@ def computed_rows(chairs, level: Path, slope: float, intercept: float) -> list[d
     for r in superseding_rows(_paths(chairs)):
         v = finite_float(r.get("gfn2_dE_kjmol"))
         if v is not None and r.get("status") == "ok":
-            out.append((r["ring_class"], int(r["position"]), r["group"], v, _generator(r.get("settings", ""))))
+            out.append(
+                (r["ring_class"], int(r["position"]), r["group"], v, _generator(r.get("settings", "")))
+            )
     rows = []
     for cls, pos, group, v, made_by in out:
         rels = rels_for(cls, pos)
@@ -408,7 +418,7 @@ def main(argv=None) -> int:
         nargs="+",
         default=list(CHAIR_FILES),
         help="computed chair energies (CSV), newest first: a compound is taken from the first file that has it "
-        "(default: chair_energies_v2.csv, then chair_energies.csv)",
+        "(default: chair_energies_v3.csv, chair_energies_v2.csv, chair_energies.csv)",
     )
     ap.add_argument("--level-of-theory", type=Path, default=COMPUTED / "level_of_theory.csv")
     ap.add_argument("--out", type=Path, default=None, help="folder for the model file (default: models/)")
