@@ -19,8 +19,8 @@ counted with its reason.
 
 Computation (reusing ``libconf.compute.chairs`` and ``libconf.compute.xtb``, as
 ``libconf audit`` does): both chairs in 3D (ETKDG + MMFF94, forced flips, rotor scan,
-N inversion), the ``n_best`` lowest MMFF94 conformers of each chair re-optimised at
-GFN2-xTB (tblite, gas phase); a chair's energy is its lowest usable optimum (converged,
+N inversion), the ``n_best`` conformers of each chair that a GFN2-xTB single point on the
+MMFF94 geometry puts lowest re-optimised at GFN2-xTB (tblite, gas phase); a chair's energy is its lowest usable optimum (converged,
 still that chair, the reference group still axial/equatorial as it started).
 
 Label-free chair signature: for each 3D chair, the set of heavy ring substituents with a
@@ -35,8 +35,11 @@ so nothing of the engine's own chair numbering is stored or trusted. A computed
 reference is a reference, not the truth (gas-phase electronic energies of single minima;
 GFN2-xTB's own errors: datasets/computed/README.md).
 
-    python -m libconf.compute.external_check --out datasets/computed/external_check.csv --n 100
-    python -m libconf.compute.external_check --out datasets/computed/external_check.csv --evaluate
+    python -m libconf.compute.external_check --out datasets/computed/external_check_v2.csv --n 100
+    python -m libconf.compute.external_check --out datasets/computed/external_check_v2.csv --evaluate
+
+(``external_check.csv`` holds version 1, computed with thinner sampling; ``--evaluate``
+reads either.)
 """
 
 from __future__ import annotations
@@ -55,13 +58,17 @@ from pathlib import Path
 
 from .csvrows import finished_keys
 
-CHECKER = "libconf.compute.external_check 1"
+CHECKER = "libconf.compute.external_check 2"
 LIBRARY_MEMBER = "moses/dataset/data/test_scaffolds.csv.gz"
 DEFAULT_WHEEL = Path("/tmp/bench/molsets-0.3.1-py3-none-any.whl")
 SEED = 20261201
-N_CONFORMERS = 20
-KEEP = 4
-N_BEST = 2
+# version 1 (external_check.csv) used 20 / 4 / 2 by MMFF94's order; version 2
+# (external_check_v2.csv) samples as the training generator does since its version 3:
+# 48 embeddings, 8 minima per chair, the 4 lowest by GFN2-xTB single point re-optimised
+N_CONFORMERS = 48
+KEEP = 8
+N_BEST = 4
+PRERANK = True
 GTOL = 1e-4
 MAX_HEAVY = 22
 MEDIUM = "nonpolar"
@@ -96,6 +103,7 @@ def settings_string(seed: int = SEED, medium: str = MEDIUM, max_heavy: int = MAX
     return (
         f"checker={CHECKER.split()[-1]};level=GFN2-xTB gas;seed={seed};n_conformers={N_CONFORMERS};"
         f"keep={KEEP};n_best={N_BEST};gtol={GTOL:g};selection_medium={medium};max_heavy={max_heavy}"
+        + (";prerank=gfn2-single-point" if PRERANK else "")
     )
 
 
@@ -310,7 +318,7 @@ def compute_one(p: Pick, settings: str, seed: int = SEED) -> dict:
         heavy_fixed = tracked_atoms(pair)
         out["fixed_face_atoms"] = _fmt(heavy_fixed)
         out["mmff94_dE_1m0_kjmol"] = f"{pair.best(1).energy_kj - pair.best(0).energy_kj:.3f}"
-        res = axial_minus_equatorial(pair, p.reference_atom, n_best=N_BEST, gtol=GTOL)
+        res = axial_minus_equatorial(pair, p.reference_atom, n_best=N_BEST, gtol=GTOL, prerank=PRERANK)
         ax = pair.axial_chair(p.reference_atom)
         by_chair = {ax: res.axial, 1 - ax: res.equatorial}
         best = {}
