@@ -1,5 +1,6 @@
 """External check of the engine against GFN2-xTB on a library training did not use
-(datasets/computed/external_check.csv, made by libconf.compute.external_check).
+(datasets/computed/external_check.csv and, sampled more densely, external_check_v2.csv,
+made by libconf.compute.external_check).
 
 Fast: only the engine is re-run (libconf.analyze on the stored SMILES); the stored 3D
 energies are read, not recomputed.
@@ -13,12 +14,14 @@ import pytest
 from libconf.compute.external_check import CLEAR_KJ, COLUMNS, evaluate
 
 CSV = Path(__file__).resolve().parents[1] / "datasets" / "computed" / "external_check.csv"
+CSV_V2 = CSV.with_name("external_check_v2.csv")
 
 # Issue #4 thresholds (project requirement, not a literature value).
 MIN_AGREEMENT = 0.90
 MIN_SPEARMAN = 0.80
 # Measured on the committed CSV with the engine of 2026-12-01 (see datasets/computed/README.md).
 MEASURED = "agreement 0.753 (73 rings with |dE| > 2 kJ/mol), Spearman 0.24, medium nonpolar"
+MEASURED_V2 = "see datasets/computed/README.md (external_check_v2.csv)"
 
 
 def _rows():
@@ -37,6 +40,11 @@ def _write(path, rows):
 @pytest.fixture(scope="module")
 def measured():
     return evaluate(CSV)
+
+
+@pytest.fixture(scope="module")
+def measured_v2():
+    return evaluate(CSV_V2)
 
 
 def test_committed_csv_evaluates_to_numbers(measured):
@@ -92,9 +100,20 @@ def test_swapped_chair_signatures_also_lower_the_agreement(measured, tmp_path):
     assert bad["agreement"] < measured["agreement"]
 
 
+def test_denser_sampled_csv_evaluates_to_numbers(measured_v2):
+    assert measured_v2["compared"] >= 20
+    assert 0.0 <= measured_v2["agreement"] <= 1.0
+
+
 @pytest.mark.xfail(
     strict=False, reason=f"issue #4 thresholds not met by the current engine: measured {MEASURED}"
 )
 def test_issue_4_thresholds(measured):
     assert measured["agreement"] >= MIN_AGREEMENT
     assert measured["spearman"] >= MIN_SPEARMAN
+
+
+@pytest.mark.xfail(strict=False, reason=f"issue #4 thresholds not met: measured {MEASURED_V2}")
+def test_issue_4_thresholds_denser_reference(measured_v2):
+    assert measured_v2["agreement"] >= MIN_AGREEMENT
+    assert measured_v2["spearman"] >= MIN_SPEARMAN

@@ -82,3 +82,39 @@ def test_split_sanitisation_on_a_real_library():
             if a != b:
                 diffs.append((s, "rings differ", ""))
     assert diffs == []
+
+
+@pytest.mark.parametrize(
+    ("smiles", "n_rings"),
+    [
+        ("C12CCC(CC1)CC2", 3),  # bicyclo[2.2.2]octane: three six-membered rings
+        ("C1CCC2(CC1)CCCCC2", 2),  # spiro[5.5]undecane
+        ("O=C1CCCCC1", 1),  # cyclohexanone: ring bonds all single
+        ("C1CCOCC1", 1),
+        ("c1ccc2c(c1)CCCC2", 0),  # tetralin: the fusion bond is aromatic
+        ("c1ccccc1", 0),
+    ],
+)
+def test_saturated_ring_prefilter_agrees_with_the_ring_search(smiles, n_rings):
+    # the pre-test (RDKit's saturated-ring count, then a substructure search) says yes
+    # for every molecule the ring search finds a ring in, and no for these without one
+    from libconf.chem.rings import has_saturated_six_ring, saturated_six_rings
+
+    mol = parse_smiles(smiles)
+    assert len(saturated_six_rings(mol)) == n_rings
+    assert has_saturated_six_ring(mol) == (n_rings > 0)
+
+
+def test_saturated_ring_prefilter_never_hides_a_ring_in_a_real_library():
+    # RDKit's bundled NCI sample (rdkit/Data/NCI/first_5K.smi)
+    from libconf.chem.rings import has_saturated_six_ring, saturated_six_rings
+
+    missed = []
+    for s in _nci():
+        try:
+            mol = parse_smiles(s)
+        except InputError:
+            continue
+        if saturated_six_rings(mol) and not has_saturated_six_ring(mol):
+            missed.append(s)
+    assert missed == []
