@@ -111,7 +111,8 @@ def build_parser() -> argparse.ArgumentParser:
         default=0,
         metavar="N",
         help="first compute or resume the N most frequent model compounds at GFN2-xTB (slow: "
-        "about 10-20 s each on 2 cores); 0 (default) refits on the data already computed",
+        "about 25 s each per core, minutes for a flexible group); 0 (default) refits on the data "
+        "already computed",
     )
     tr.add_argument(
         "--jobs", type=int, default=2, metavar="N", help="worker processes for --compute (default 2)"
