@@ -101,14 +101,8 @@ def _diagnose(smiles: str) -> InputError:
         return InputError("SMILES parse error (RDKit could not read the string)")
 
 
-def parse_smiles(smiles: str) -> Chem.Mol:
-    """SMILES to a sanitised Mol, or InputError with a reason.
-
-    RDKit's full sanitisation runs (valences, aromaticity, rings), but not its stereo
-    perception pass: the engine reads the chiral tags as written (a tag RDKit would
-    drop on a centre that is not stereogenic changes no energy), and that pass costs a
-    quarter of a parse.
-    """
+def _read_smiles(smiles) -> tuple[Chem.Mol, str]:
+    """(unsanitised Mol, stripped text) of a SMILES string, or InputError with a reason."""
     if not isinstance(smiles, str):
         raise InputError(f"expected a SMILES string, got {type(smiles).__name__}")
     text = smiles.strip()
@@ -117,13 +111,31 @@ def parse_smiles(smiles: str) -> Chem.Mol:
     mol = Chem.MolFromSmiles(text, sanitize=False)
     if mol is None:
         raise _diagnose(text)
+    return mol, text
+
+
+def _sanitize(mol: Chem.Mol, text: str, ops=Chem.SanitizeFlags.SANITIZE_ALL) -> None:
     try:
-        Chem.SanitizeMol(mol)
+        Chem.SanitizeMol(mol, ops)
     except Exception:  # RDKit raises several sanitisation exception types
         raise _diagnose(text) from None
-    if "H" in text and any(a.GetAtomicNum() == 1 for a in mol.GetAtoms()):
-        mol = Chem.RemoveHs(mol)
-    return mol
+
+
+def _has_explicit_h(mol: Chem.Mol, text: str) -> bool:
+    return "H" in text and any(a.GetAtomicNum() == 1 for a in mol.GetAtoms())
+
+
+def parse_smiles(smiles: str) -> Chem.Mol:
+    """SMILES to a sanitised Mol, or InputError with a reason.
+
+    RDKit's full sanitisation runs (valences, aromaticity, rings), but not its stereo
+    perception pass: the engine reads the chiral tags as written (a tag RDKit would
+    drop on a centre that is not stereogenic changes no energy), and that pass costs a
+    quarter of a parse.
+    """
+    mol, text = _read_smiles(smiles)
+    _sanitize(mol, text)
+    return Chem.RemoveHs(mol) if _has_explicit_h(mol, text) else mol
 
 
 _S = Chem.SanitizeFlags
@@ -147,19 +159,9 @@ def _parse_for_analysis(smiles: str) -> tuple[Chem.Mol, bool]:
     `parse_smiles` would, but without the annotating sanitisation steps, which the
     caller runs (`_finish`) only if the molecule may carry a saturated six-membered
     ring. A SMILES with explicit H atoms is finished here (removing them needs it)."""
-    if not isinstance(smiles, str):
-        raise InputError(f"expected a SMILES string, got {type(smiles).__name__}")
-    text = smiles.strip()
-    if not text:
-        raise InputError("empty molecule: the SMILES string is blank")
-    mol = Chem.MolFromSmiles(text, sanitize=False)
-    if mol is None:
-        raise _diagnose(text)
-    try:
-        Chem.SanitizeMol(mol, _VALIDATE)
-    except Exception:  # RDKit raises several sanitisation exception types
-        raise _diagnose(text) from None
-    if "H" in text and any(a.GetAtomicNum() == 1 for a in mol.GetAtoms()):
+    mol, text = _read_smiles(smiles)
+    _sanitize(mol, text, _VALIDATE)
+    if _has_explicit_h(mol, text):
         _finish(mol, text)
         return Chem.RemoveHs(mol), True
     return mol, False
@@ -167,10 +169,7 @@ def _parse_for_analysis(smiles: str) -> tuple[Chem.Mol, bool]:
 
 def _finish(mol: Chem.Mol, text: str) -> None:
     """The annotating sanitisation steps on a molecule `_parse_for_analysis` validated."""
-    try:
-        Chem.SanitizeMol(mol, _ANNOTATE)
-    except Exception:
-        raise _diagnose(text) from None
+    _sanitize(mol, text, _ANNOTATE)
 
 
 # --- one ring -------------------------------------------------------------------

@@ -28,6 +28,12 @@ from ..parameters import load
 from .csvrows import finite_float, superseding_rows
 
 HERE = Path(__file__).resolve().parents[2] / "datasets" / "computed"
+# Chair-energy files, newest first: a compound is taken from the first file that has it.
+# Generators 2 and 3 sample the same way (3 re-optimises the GFN2-xTB-preranked half of
+# what 2 does, and skips what 2 holds); both supersede generator 1's thinner sampling.
+CHAIR_FILES = (HERE / "chair_energies_v3.csv", HERE / "chair_energies_v2.csv", HERE / "chair_energies.csv")
+#: files at least as thorough as the current generator: `libconf train --compute` skips their compounds
+AS_THOROUGH = (HERE / "chair_energies_v2.csv",)
 
 
 def pairs(level_csv: Path, chairs_csv, column: str = "gfn2_dE_kjmol") -> list[dict]:
@@ -50,8 +56,7 @@ def pairs(level_csv: Path, chairs_csv, column: str = "gfn2_dE_kjmol") -> list[di
                 )
     if chairs_csv:
         P = load()
-        paths = [chairs_csv] if isinstance(chairs_csv, (str, Path)) else list(chairs_csv)
-        for r in superseding_rows(paths):
+        for r in superseding_rows(chairs_csv):
             comp = finite_float(r.get(column))
             if comp is None or r["ring_class"] == "cyclohexane":
                 continue
@@ -98,7 +103,7 @@ def main(argv=None) -> int:
         "--chairs",
         type=Path,
         nargs="+",
-        default=[HERE / "chair_energies_v3.csv", HERE / "chair_energies_v2.csv", HERE / "chair_energies.csv"],
+        default=list(CHAIR_FILES),
         help="chair-energy CSVs, newest first",
     )
     ap.add_argument("--column", default="gfn2_dE_kjmol")

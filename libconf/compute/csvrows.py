@@ -33,10 +33,12 @@ def finished_keys(out_path: Path, settings: str, key: Callable[[dict], str]) -> 
 
 
 def superseding_rows(paths, key: Callable[[dict], str] = lambda r: r["model_smiles"]) -> list[dict]:
-    """Rows of several CSV files of one kind, newest first: a compound (``key``) is taken
+    """Rows of one CSV file or several of one kind, newest first: a compound (``key``) is taken
     from the first file that has it, whatever its status there, so a re-computation with
     better settings replaces the older row and the older file still fills what it has not
     reached yet. Missing files are skipped."""
+    if isinstance(paths, (str, Path)):
+        paths = [paths]
     seen: set[str] = set()
     out: list[dict] = []
     for path in paths:

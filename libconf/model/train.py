@@ -36,16 +36,7 @@ from .features import FEATURE_NAMES, RING_HETERO, features, rels_for
 
 ROOT = Path(__file__).resolve().parents[2]
 COMPUTED = ROOT / "datasets" / "computed"
-# newest first: a compound is taken from the first file that has it. Generators 2 and 3
-# sample the same way (3 re-optimises the GFN2-xTB-preranked half of what 2 does, and
-# skips what 2 holds); both supersede generator 1's thinner sampling compound by compound.
-CHAIR_FILES = (
-    COMPUTED / "chair_energies_v3.csv",
-    COMPUTED / "chair_energies_v2.csv",
-    COMPUTED / "chair_energies.csv",
-)
-#: files at least as thorough as the current generator: `libconf train --compute` skips their compounds
-AS_THOROUGH = (COMPUTED / "chair_energies_v2.csv",)
+CHAIR_FILES, AS_THOROUGH = calibrate.CHAIR_FILES, calibrate.AS_THOROUGH
 PARAMETERS = ROOT / "datasets" / "parameters"
 TRAINER = "libconf.model.train 1"
 SEED = 20261201
@@ -127,7 +118,7 @@ def excluded_counts(chairs, level: Path) -> dict:
     if level.exists():
         with open(level, newline="", encoding="utf-8") as fh:
             rows.extend(csv.DictReader(fh))
-    rows.extend(superseding_rows(_paths(chairs)))
+    rows.extend(superseding_rows(chairs))
     for r in rows:
         if r.get("status", "ok") != "ok" or finite_float(r.get("gfn2_dE_kjmol")) is None:
             continue
@@ -137,11 +128,6 @@ def excluded_counts(chairs, level: Path) -> dict:
     return dict(c)
 
 
-def _paths(chairs) -> list[Path]:
-    """One path or several (newest first) as a list of paths."""
-    return [Path(chairs)] if isinstance(chairs, (str, Path)) else [Path(p) for p in chairs]
-
-
 def computed_rows(chairs, level: Path, slope: float, intercept: float) -> list[dict]:
     out = []
     with open(level, newline="", encoding="utf-8") as fh:
@@ -149,7 +135,7 @@ def computed_rows(chairs, level: Path, slope: float, intercept: float) -> list[d
             v = finite_float(r.get("gfn2_dE_kjmol"))
             if v is not None and r.get("status", "ok") == "ok":
                 out.append(("cyclohexane", 1, r["group"], v, "level of theory"))
-    for r in superseding_rows(_paths(chairs)):
+    for r in superseding_rows(chairs):
         v = finite_float(r.get("gfn2_dE_kjmol"))
         if v is not None and r.get("status") == "ok":
             out.append(
@@ -188,7 +174,7 @@ def dataset(chairs=None, level: Path = COMPUTED / "level_of_theory.csv"):
 
     ``chairs``: one chair-energy CSV or several, newest first (default ``CHAIR_FILES``).
     """
-    chairs = CHAIR_FILES if chairs is None else _paths(chairs)
+    chairs = CHAIR_FILES if chairs is None else chairs
     cal_rows = calibrate.pairs(level, chairs)
     cal = calibrate.fit(cal_rows)
     exp = experimental_rows()
