@@ -74,7 +74,7 @@ class Record(NamedTuple):
     mol_id: str
     kind: str  # "smiles" | "molblock" | "error"
     text: str  # the SMILES or the molblock; for errors, empty
-    raw: str  # record as found in the file (already truncated)
+    raw: str  # record as found in the file (already truncated); "" when it is just `text`
     reason: str = ""  # for kind == "error"
     stage: str = ""  # for kind == "error": read
 
@@ -131,10 +131,18 @@ def open_binary(spec: InputSpec) -> BinaryIO:
 
 
 def truncate_raw(text: str) -> str:
+    if len(text) * 4 <= RAW_LIMIT_BYTES:  # no character takes more than 4 bytes in UTF-8
+        return text
     data = text.encode("utf-8", "replace")
     if len(data) <= RAW_LIMIT_BYTES:
         return text
     return data[:RAW_LIMIT_BYTES].decode("utf-8", "ignore")
+
+
+def _raw_unless_text(raw: str, text: str) -> str:
+    """The raw record for `Record.raw`; empty when it is the SMILES itself (most lines of a
+    one-column file), which spares sending the same string twice to a worker."""
+    return "" if raw == text else truncate_raw(raw)
 
 
 def _decode(line: bytes, lineno: int) -> tuple[str, str | None]:
@@ -228,7 +236,7 @@ def _read_smiles(spec: InputSpec) -> Iterator[Record]:
                     mol_id or _default_id(spec, row),
                     "smiles",
                     parts[0],
-                    truncate_raw(text),
+                    _raw_unless_text(text, parts[0]),
                 )
             row += 1
 
@@ -394,7 +402,7 @@ def _read_delimited(spec: InputSpec) -> Iterator[Record]:
                     mol_id,
                     "smiles",
                     fields[s_idx].strip(),
-                    truncate_raw(raw),
+                    _raw_unless_text(raw, fields[s_idx].strip()),
                 )
             row += 1
 

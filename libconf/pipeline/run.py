@@ -30,6 +30,7 @@ from typing import Any, BinaryIO
 
 import pyarrow as pa
 
+from libconf.engine import MEDIA
 from libconf.pipeline.failures import FatalError, UsageError
 from libconf.pipeline.readers import (
     InputSpec,
@@ -45,7 +46,6 @@ from libconf.pipeline.work import HUNG_EXIT_STATUS, AnalysisOptions, ChunkResult
 
 MANIFEST = "manifest.json"
 MANIFEST_FORMAT = 1
-MEDIA = ("nonpolar", "water")
 
 #: Parameters that change the tables; a resumed run must use the same values.
 DEFAULTS: dict[str, Any] = {
