@@ -129,6 +129,11 @@ def build_parser() -> argparse.ArgumentParser:
     tr.add_argument(
         "--metrics-only", action="store_true", help="cross-validate and print the metrics; write nothing"
     )
+    tr.add_argument(
+        "--nested",
+        action="store_true",
+        help="also run the nested cross-validation that chose the model's setting (about 2 min)",
+    )
     return parser
 
 
@@ -156,7 +161,8 @@ def run_train(args) -> int:
         if rc:
             return rc
     argv = ["--chairs", *chairs] + (["--out", args.out] if args.out else [])
-    return train.main(argv + (["--metrics-only"] if args.metrics_only else []))
+    argv += ["--metrics-only"] if args.metrics_only else []
+    return train.main(argv + (["--nested"] if args.nested else []))
 
 
 def run_explain(args) -> int:
