@@ -19,7 +19,7 @@ test: $(STAMP)
 demo: $(STAMP)
 	$(BIN)/python datasets/demo/run_demo.py $(DEMO_OUT)
 
-# TRAIN_COMPUTE=N first computes (or resumes) N model compounds at GFN2-xTB (~25 s each per core)
+# TRAIN_COMPUTE=N first computes (or resumes) N model compounds at GFN2-xTB (~30 s each per core)
 TRAIN_COMPUTE ?= 0
 train: $(STAMP)
 	$(BIN)/libconf train --compute $(TRAIN_COMPUTE)

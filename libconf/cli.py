@@ -111,7 +111,7 @@ def build_parser() -> argparse.ArgumentParser:
         default=0,
         metavar="N",
         help="first compute or resume the N most frequent model compounds at GFN2-xTB (slow: "
-        "about 25 s each per core, minutes for a flexible group); 0 (default) refits on the data "
+        "about 30 s each per core, minutes for a flexible group); 0 (default) refits on the data "
         "already computed",
     )
     tr.add_argument(
@@ -122,8 +122,8 @@ def build_parser() -> argparse.ArgumentParser:
         metavar="CSV",
         nargs="+",
         help="computed chair energies, newest first; a compound is taken from the first file that "
-        "has it, --compute writes into the first (default datasets/computed/chair_energies_v3.csv, "
-        "chair_energies_v2.csv, chair_energies.csv)",
+        "has it, --compute writes into the first (default datasets/computed/chair_energies_v4.csv, "
+        "_v3, _v2, chair_energies.csv)",
     )
     tr.add_argument("--out", metavar="DIR", help="folder for the model file (default models/)")
     tr.add_argument(

@@ -31,9 +31,16 @@ HERE = Path(__file__).resolve().parents[2] / "datasets" / "computed"
 # Chair-energy files, newest first: a compound is taken from the first file that has it.
 # Generators 2 and 3 sample the same way (3 re-optimises the GFN2-xTB-preranked half of
 # what 2 does, and skips what 2 holds); both supersede generator 1's thinner sampling.
-CHAIR_FILES = (HERE / "chair_energies_v3.csv", HERE / "chair_energies_v2.csv", HERE / "chair_energies.csv")
+# Generator 4 adds to generator 3 one start per chair made from the other chair's best
+# GFN2-xTB optimum (`xtb.cross_seeded`), so it supersedes all of them.
+CHAIR_FILES = (
+    HERE / "chair_energies_v4.csv",
+    HERE / "chair_energies_v3.csv",
+    HERE / "chair_energies_v2.csv",
+    HERE / "chair_energies.csv",
+)
 #: files at least as thorough as the current generator: `libconf train --compute` skips their compounds
-AS_THOROUGH = (HERE / "chair_energies_v2.csv",)
+AS_THOROUGH: tuple[Path, ...] = ()
 
 
 def pairs(level_csv: Path, chairs_csv, column: str = "gfn2_dE_kjmol") -> list[dict]:

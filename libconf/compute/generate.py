@@ -27,7 +27,7 @@ import pandas as pd
 
 from .csvrows import finished_keys, superseding_rows
 
-GENERATOR = "libconf.compute.generate 3"
+GENERATOR = "libconf.compute.generate 4"
 HARVEST = Path(__file__).resolve().parents[2] / "datasets" / "computed" / "harvest.parquet"
 SEED = 20261201
 # version 1 (datasets/computed/chair_energies.csv) used 24 / 4 / 3, MMFF94's order: too
@@ -40,6 +40,7 @@ N_CONFORMERS = 48
 KEEP = 8
 N_BEST = 4
 PRERANK = True  # order each chair's conformers by GFN2-xTB single point before n_best
+CROSS_SEED = True  # each chair also from the other chair's best GFN2-xTB optimum (generator 4)
 GTOL = 1e-4
 COLUMNS = [
     "model_smiles",
@@ -61,7 +62,9 @@ COLUMNS = [
 def settings_string(level: str) -> str:
     return (
         f"generator={GENERATOR.split()[-1]};level={level};seed={SEED};n_conformers={N_CONFORMERS};"
-        f"keep={KEEP};n_best={N_BEST};gtol={GTOL:g}" + (";prerank=gfn2-single-point" if PRERANK else "")
+        f"keep={KEEP};n_best={N_BEST};gtol={GTOL:g}"
+        + (";prerank=gfn2-single-point" if PRERANK else "")
+        + (";cross_seed=1" if CROSS_SEED else "")
     )
 
 
@@ -106,7 +109,9 @@ def compute_one(row: dict, level: str) -> dict:
         if level == "xtb":
             from .xtb import axial_minus_equatorial
 
-            res = axial_minus_equatorial(pair, atom, n_best=N_BEST, gtol=GTOL, prerank=PRERANK)
+            res = axial_minus_equatorial(
+                pair, atom, n_best=N_BEST, gtol=GTOL, prerank=PRERANK, cross_seed=CROSS_SEED
+            )
             ua, ue = res.n_usable
             out["n_axial_usable"], out["n_equatorial_usable"] = ua, ue
             if res.delta_kj is None:

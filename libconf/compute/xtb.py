@@ -12,7 +12,7 @@ Implicit solvent: tblite's ALPB model with a named solvent (``solvent="water"``)
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from rdkit import Chem
@@ -165,27 +165,57 @@ def reoptimise_chair(
     on five amides and 2-ethylpiperidine, 10 chairs: the conformer that optimises lowest
     ranked first by single point in 9, and 4th or 5th by MMFF94 in 5).
     """
-    from tblite.exceptions import TBLiteRuntimeError
-
     numbers = np.array([a.GetAtomicNum() for a in pair.mol.GetAtoms()])
     charge = _charge(pair.mol)
     k = pair._position(atom)
-    out = []
     confs = list(pair.chairs[chair])
     if prerank and n_best is not None and len(confs) > n_best:
         confs = sorted(confs, key=lambda c: _single_point_or_inf(numbers, c.positions, charge, solvent))
-    for conf in confs[:n_best]:
-        before = conf.placements[atom]
-        try:
-            res = optimise(numbers, conf.positions, charge=charge, solvent=solvent, gtol=gtol)
-        except TBLiteRuntimeError as exc:
-            failed = XtbResult(conf.positions, float("nan"), float("nan"), 0, False)
-            out.append(ChairOptimum(conf, failed, TWIST, before, "none", error=str(exc) or "tblite failed"))
-            continue
-        label = chair_label(res.positions, pair.ring)
-        place = placement(res.positions, pair.ring, k, atom)[0] if label != TWIST else "none"
-        out.append(ChairOptimum(conf, res, label, before, place))
-    return out
+    return [_reoptimised(pair, conf, atom, k, numbers, charge, solvent, gtol) for conf in confs[:n_best]]
+
+
+def _reoptimised(pair, conf, atom, k, numbers, charge, solvent, gtol) -> ChairOptimum:
+    from tblite.exceptions import TBLiteRuntimeError
+
+    before = conf.placements[atom]
+    try:
+        res = optimise(numbers, conf.positions, charge=charge, solvent=solvent, gtol=gtol)
+    except TBLiteRuntimeError as exc:
+        failed = XtbResult(conf.positions, float("nan"), float("nan"), 0, False)
+        return ChairOptimum(conf, failed, TWIST, before, "none", error=str(exc) or "tblite failed")
+    label = chair_label(res.positions, pair.ring)
+    place = placement(res.positions, pair.ring, k, atom)[0] if label != TWIST else "none"
+    return ChairOptimum(conf, res, label, before, place)
+
+
+def cross_seeded(
+    pair: ChairPair, atom: int, source: ChairOptimum, solvent: str | None = None, gtol: float = 1e-4
+) -> ChairOptimum | None:
+    """The other chair, started from a GFN2-xTB optimum of this one: forced through the
+    ring flip at MMFF94 (ring torsions held, then released), then re-optimised at
+    GFN2-xTB. The side chain keeps the rotamer GFN2-xTB found best, which MMFF94's own
+    sampling of the other chair can miss (an N-thiadiazolyl acetamide on cyclohexane:
+    31 kJ/mol between chairs whose side chains differed). None when the flip did not
+    give the other chair with every substituent on its configured face."""
+    from .chairs import _conformer_faces, force_flip
+
+    start = replace(source.start, positions=np.asarray(source.result.positions, dtype=float))
+    flipped = force_flip(pair, start)
+    if flipped is None or flipped.chair != 1 - source.start.chair:
+        return None
+    faces = _conformer_faces(flipped.positions, pair.ring, pair.mol)
+    heavy = [a for a in pair.faces if pair.mol.GetAtomWithIdx(a).GetAtomicNum() > 1]
+    if any(faces.get(a) != pair.faces[a] for a in heavy):
+        return None  # the flip pushed a ring CH through the ring: another stereoisomer
+    if flipped.placements[atom] == source.placement_after:
+        return None
+    numbers = np.array([a.GetAtomicNum() for a in pair.mol.GetAtoms()])
+    return _reoptimised(pair, flipped, atom, pair._position(atom), numbers, _charge(pair.mol), solvent, gtol)
+
+
+def _lowest(opts: list[ChairOptimum]) -> ChairOptimum | None:
+    usable = [o for o in opts if o.usable]
+    return min(usable, key=lambda o: o.result.energy_eh) if usable else None
 
 
 def axial_minus_equatorial(
@@ -195,15 +225,24 @@ def axial_minus_equatorial(
     solvent: str | None = None,
     gtol: float = 1e-4,
     prerank: bool = False,
+    cross_seed: bool = False,
 ) -> AxialEquatorial:
     """GFN2-xTB ΔE = E(axial chair) - E(equatorial chair) for exocyclic ``atom``, kJ/mol.
 
     Each chair's energy is the lowest over its ``n_best`` re-optimised conformers that
-    converged and stayed in that chair (chosen by GFN2-xTB single points with ``prerank``).
+    converged and stayed in that chair (chosen by GFN2-xTB single points with ``prerank``),
+    with ``cross_seed`` also over one start made from the other chair's best optimum
+    (`cross_seeded`).
     """
     ax = pair.axial_chair(atom)
     axial = reoptimise_chair(pair, ax, atom, n_best, solvent, gtol, prerank)
     equatorial = reoptimise_chair(pair, 1 - ax, atom, n_best, solvent, gtol, prerank)
+    if cross_seed:
+        # each chair also from the other's best GFN2-xTB optimum (both seeds taken first)
+        seeds = [(_lowest(equatorial), axial), (_lowest(axial), equatorial)]
+        for src, into in seeds:
+            if src is not None and (o := cross_seeded(pair, atom, src, solvent, gtol)) is not None:
+                into.append(o)
     ea = [o.result.energy_eh for o in axial if o.usable]
     ee = [o.result.energy_eh for o in equatorial if o.usable]
     delta = (min(ea) - min(ee)) * HARTREE_KJ if ea and ee else None

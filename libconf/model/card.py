@@ -155,9 +155,11 @@ replace experiment.
   of the class carrying only that group; groups harvested from RDKit's NCI subset and the
   first 200,000 records of the MOSES training split) and `level_of_theory.csv`, GFN2-xTB
   (tblite), gas phase, lowest re-optimised conformer of each chair. A compound comes from
-  the newest file that has it: `datasets/computed/chair_energies_v3.csv` (generator 3: 48
-  embeddings, 8 MMFF94 minima per chair ordered by a GFN2-xTB single point, the best 4
-  re-optimised), then `chair_energies_v2.csv` (generator 2: the same 8 all re-optimised),
+  the newest file that has it: `datasets/computed/chair_energies_v4.csv` (generator 4:
+  generator 3 plus one start per chair made from the other chair's best GFN2-xTB optimum,
+  so both chairs get the side-chain rotamer GFN2-xTB likes), then `chair_energies_v3.csv`
+  (generator 3: 48 embeddings, 8 MMFF94 minima per chair ordered by a GFN2-xTB single
+  point, the best 4 re-optimised), then `chair_energies_v2.csv` (generator 2: the same 8 all re-optimised),
   then `chair_energies.csv` (generator 1: 24 / 4 / 3, which misses the best conformer of
   some flexible groups); rows used by source: {by_source}. Provenance and commands in `datasets/computed/README.md`.
   Only rows whose group in context is not tabulated are used. Weight 1.

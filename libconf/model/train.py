@@ -450,7 +450,7 @@ def main(argv=None) -> int:
         nargs="+",
         default=list(CHAIR_FILES),
         help="computed chair energies (CSV), newest first: a compound is taken from the first file that has it "
-        "(default: chair_energies_v3.csv, chair_energies_v2.csv, chair_energies.csv)",
+        "(default: chair_energies_v4.csv, _v3, _v2, chair_energies.csv)",
     )
     ap.add_argument("--level-of-theory", type=Path, default=COMPUTED / "level_of_theory.csv")
     ap.add_argument("--out", type=Path, default=None, help="folder for the model file (default: models/)")
