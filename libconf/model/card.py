@@ -82,7 +82,7 @@ def _scatter_text(cv: dict, twins: dict, other_splits: list[float]) -> str:
         "features can get below. Generator 1's thin sampling (3 conformers per chair in MMFF94's "
         "order) made it worse: on 137 compounds computed both ways, generator 2 differs from "
         "generator 1 by more than 2 kJ/mol for 47 (mostly amides on piperidine C4). With every "
-        "compound recomputed by generator 2 or 3 the scatter fell from 1.98 to the figure here "
+        "compound recomputed by generator 2 or later the scatter fell from 1.98 to the figure here "
         "and the held-out MAE from 2.01 (generator 1, squared error, depth 3) to 1.60 (same "
         "setting) and to the figure above (Huber loss, depth 4)."
         + (
