@@ -161,8 +161,8 @@ def run_train(args) -> int:
         if rc:
             return rc
     argv = ["--chairs", *chairs] + (["--out", args.out] if args.out else [])
-    argv += ["--metrics-only"] if args.metrics_only else []
-    return train.main(argv + (["--nested"] if args.nested else []))
+    flags = [f for f, on in (("--metrics-only", args.metrics_only), ("--nested", args.nested)) if on]
+    return train.main(argv + flags)
 
 
 def run_explain(args) -> int:

@@ -154,6 +154,13 @@ class ChairPair:
     n_side_ring_flips: int = 0  # flips of another six-membered ring that kept this one's chair
     n_invertomer_starts: int = 0  # N-inversion starts that stayed in their chair
     notes: list[str] = field(default_factory=list)
+    watched: set[int] = field(default_factory=set)  # exocyclic atoms whose face is configured
+
+    def keeps_faces(self, positions: np.ndarray) -> bool:
+        """Every watched substituent on its configured face. A forced flip through the flat
+        ring can push a ring CH through itself: that is another stereoisomer, not a chair."""
+        geo = _conformer_faces(positions, self.ring, self.mol)
+        return all(geo.get(a) == self.faces.get(a) for a in self.watched)
 
     def best(self, chair: int) -> ChairConformer:
         if not self.chairs.get(chair):
@@ -432,13 +439,14 @@ def force_flip(
     the mirror-image pattern, then released and re-optimised freely.
 
     Returns the released minimum if its ring is a chair (the flipped one, normally),
-    None if it relaxed off-chair.
+    None if it relaxed off-chair or a watched substituent left its configured face.
     """
     mh = Chem.Mol(pair.mol)
     props = AllChem.MMFFGetMoleculeProperties(mh)
     if props is None:
         raise ValueError("MMFF94 has no parameters for this molecule")
-    return _flip(mh, props, pair.ring, pair.ring, conformer, k_torsion, min_torsion)
+    rec = _flip(mh, props, pair.ring, pair.ring, conformer, k_torsion, min_torsion)
+    return rec if rec is not None and pair.keeps_faces(rec.positions) else None
 
 
 def both_chairs(
@@ -482,7 +490,12 @@ def both_chairs(
     if props is None:
         raise ValueError("MMFF94 has no parameters for this molecule")
     pair = ChairPair(
-        mol=Chem.Mol(mh, confId=-1), ring=ring, chairs={0: [], 1: []}, faces={}, n_embedded=len(cids)
+        mol=Chem.Mol(mh, confId=-1),
+        ring=ring,
+        chairs={0: [], 1: []},
+        faces=faces,  # completed below; the watched atoms' faces are final once sampling starts
+        n_embedded=len(cids),
+        watched=watch,
     )
     pair.mol.RemoveAllConformers()
 
@@ -493,8 +506,7 @@ def both_chairs(
         # the atom): such a structure is a different stereoisomer, not a chair of this one
         if rec is None:
             return False
-        geo = _conformer_faces(rec.positions, ring, mh)
-        if any(geo.get(a) != faces.get(a) for a in watch):
+        if not pair.keeps_faces(rec.positions):
             pair.notes.append(f"{how}: a substituent off its configured face; dropped")
             return False
         return True

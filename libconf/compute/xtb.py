@@ -197,17 +197,11 @@ def cross_seeded(
     sampling of the other chair can miss (an N-thiadiazolyl acetamide on cyclohexane:
     31 kJ/mol between chairs whose side chains differed). None when the flip did not
     give the other chair with every substituent on its configured face."""
-    from .chairs import _conformer_faces, force_flip
+    from .chairs import force_flip
 
     start = replace(source.start, positions=np.asarray(source.result.positions, dtype=float))
-    flipped = force_flip(pair, start)
+    flipped = force_flip(pair, start)  # None also when a substituent left its face
     if flipped is None or flipped.chair != 1 - source.start.chair:
-        return None
-    faces = _conformer_faces(flipped.positions, pair.ring, pair.mol)
-    heavy = [a for a in pair.faces if pair.mol.GetAtomWithIdx(a).GetAtomicNum() > 1]
-    if any(faces.get(a) != pair.faces[a] for a in heavy):
-        return None  # the flip pushed a ring CH through the ring: another stereoisomer
-    if flipped.placements[atom] == source.placement_after:
         return None
     numbers = np.array([a.GetAtomicNum() for a in pair.mol.GetAtoms()])
     return _reoptimised(pair, flipped, atom, pair._position(atom), numbers, _charge(pair.mol), solvent, gtol)

@@ -233,15 +233,24 @@ def _base(m, X):
     return float(m.init_.predict(X[:1])[0]) if hasattr(m.init_, "predict") else 0.0
 
 
-def grouped_cv(rows, X, y, w, groups, n_splits=10, seed=SEED) -> dict:
-    """Hold out whole substituents; metrics on computed rows and on experimental rows."""
+def _held_out_predictions(X, y, w, groups, n_splits, seed, setting=None) -> np.ndarray:
+    """Each row predicted by a model fitted without its group's fold (whole groups held out)."""
     from sklearn.model_selection import GroupKFold
 
     pred = np.full(len(y), np.nan)
-    gkf = GroupKFold(n_splits=n_splits, shuffle=True, random_state=seed)
-    for tr, te in gkf.split(X, y, groups):
-        pred[te] = _fit(X[tr], y[tr], w[tr]).predict(X[te])
-    comp = np.array([r["origin"] == "computed" for r in rows])
+    for tr, te in GroupKFold(n_splits=n_splits, shuffle=True, random_state=seed).split(X, y, groups):
+        pred[te] = _fit(X[tr], y[tr], w[tr], setting=setting).predict(X[te])
+    return pred
+
+
+def _computed_mask(rows) -> np.ndarray:
+    return np.array([r["origin"] == "computed" for r in rows])
+
+
+def grouped_cv(rows, X, y, w, groups, n_splits=10, seed=SEED) -> dict:
+    """Hold out whole substituents; metrics on computed rows and on experimental rows."""
+    pred = _held_out_predictions(X, y, w, groups, n_splits, seed)
+    comp = _computed_mask(rows)
     res = y - pred
     return {
         "pred": pred,
@@ -260,20 +269,15 @@ def nested_cv(rows, X, y, w, groups, settings=SETTINGS_TRIED, n_splits=10, seed=
     inner 5-fold grouped split), so the choice of setting does not flatter the figure."""
     from sklearn.model_selection import GroupKFold
 
-    comp = np.array([r["origin"] == "computed" for r in rows])
+    comp = _computed_mask(rows)
     pred = np.full(len(y), np.nan)
     chosen = []
     outer = GroupKFold(n_splits=n_splits, shuffle=True, random_state=seed)
     for tr, te in outer.split(X, y, groups):
         scores = []
         for setting in settings:
-            inner_pred = np.full(len(tr), np.nan)
-            inner = GroupKFold(n_splits=5, shuffle=True, random_state=seed + 1)
-            for itr, ite in inner.split(X[tr], y[tr], groups[tr]):
-                inner_pred[ite] = _fit(X[tr][itr], y[tr][itr], w[tr][itr], setting=setting).predict(
-                    X[tr][ite]
-                )
-            scores.append(float(np.abs((y[tr] - inner_pred)[comp[tr]]).mean()))
+            inner = _held_out_predictions(X[tr], y[tr], w[tr], groups[tr], 5, seed + 1, setting)
+            scores.append(float(np.abs((y[tr] - inner)[comp[tr]]).mean()))
         best = int(np.argmin(scores))
         chosen.append(best)
         pred[te] = _fit(X[tr], y[tr], w[tr], setting=settings[best]).predict(X[te])

@@ -396,14 +396,8 @@ def _read_delimited(spec: InputSpec) -> Iterator[Record]:
             elif not fields[s_idx].strip():
                 yield _error(spec, row, mol_id, raw, f"empty SMILES in column {header[s_idx]!r}")
             else:
-                yield Record(
-                    spec.input_file,
-                    row,
-                    mol_id,
-                    "smiles",
-                    fields[s_idx].strip(),
-                    _raw_unless_text(raw, fields[s_idx].strip()),
-                )
+                smiles = fields[s_idx].strip()
+                yield Record(spec.input_file, row, mol_id, "smiles", smiles, _raw_unless_text(raw, smiles))
             row += 1
 
 
