@@ -22,6 +22,17 @@ from .features import CONTEXT_FEATURES, GROUP_FEATURES
 ROOT = Path(__file__).resolve().parents[2]
 
 
+
+def _chosen_settings(nested: dict) -> str:
+    """'setting X' or 'settings X (n folds) and Y (m folds)', most chosen first."""
+    from collections import Counter
+
+    counts = Counter(nested["chosen_per_fold"]).most_common()
+    if len(counts) == 1:
+        return f"setting {nested['settings'][counts[0][0]]} in every fold"
+    parts = [f"{nested['settings'][k]} ({n} fold{'s' if n > 1 else ''})" for k, n in counts]
+    return "settings " + ", ".join(parts[:-1]) + " and " + parts[-1]
+
 def _level_table() -> str:
     path = ROOT / "datasets" / "computed" / "level_of_theory.csv"
     lines = [
@@ -113,10 +124,9 @@ def render(metrics: dict, coverage: str | None, external: str | None) -> str:
     nested_text = (
         "Choosing the setting inside each training fold (an inner 5-fold grouped split over "
         f"{', '.join(str(x) for x in nested['settings'])}) gives a held-out MAE of "
-        f"**{nested['computed_mae_kjmol']:.2f} kJ/mol**; the inner split chose setting "
-        f"{'s ' if len(set(nested['chosen_per_fold'])) > 1 else ''}"
-        f"{', '.join(str(nested['settings'][k]) for k in sorted(set(nested['chosen_per_fold'])))} "
-        f"(folds: {nested['chosen_per_fold']}), so the figure above is not flattered by the choice. "
+        f"**{nested['computed_mae_kjmol']:.2f} kJ/mol**; the inner split chose "
+        + _chosen_settings(nested)
+        + f" (folds: {nested['chosen_per_fold']}), so the figure above is not flattered by the choice. "
         "`libconf train --nested` repeats it."
         if nested
         else "No nested check recorded for this file (`libconf train --nested`)."
