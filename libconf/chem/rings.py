@@ -72,9 +72,12 @@ def has_saturated_six_ring(mol: Chem.Mol) -> bool:
     return mol.HasSubstructMatch(_SAT6)
 
 
-def saturated_six_rings(mol: Chem.Mol, view=None) -> list[tuple[int, ...]]:
-    """Six-membered rings (RDKit's symmetrised SSSR) with only single, non-aromatic bonds."""
-    if not mol.HasSubstructMatch(_SAT6):
+def saturated_six_rings(mol: Chem.Mol, view=None, pretested: bool = False) -> list[tuple[int, ...]]:
+    """Six-membered rings (RDKit's symmetrised SSSR) with only single, non-aromatic bonds.
+
+    ``pretested``: the caller has just seen `has_saturated_six_ring` say yes on this
+    molecule as it is now, so the substructure search is not repeated."""
+    if not pretested and not mol.HasSubstructMatch(_SAT6):
         return []
     out = []
     if view is not None:
