@@ -99,11 +99,19 @@ COLUMNS = [
 ]
 
 
-def settings_string(seed: int = SEED, medium: str = MEDIUM, max_heavy: int = MAX_HEAVY) -> str:
+def settings_string(
+    seed: int = SEED,
+    medium: str = MEDIUM,
+    max_heavy: int = MAX_HEAVY,
+    solvent: str | None = None,
+    cross_seed: bool = False,
+) -> str:
+    level = f"GFN2-xTB ALPB({solvent})" if solvent else "GFN2-xTB gas"
     return (
-        f"checker={CHECKER.split()[-1]};level=GFN2-xTB gas;seed={seed};n_conformers={N_CONFORMERS};"
+        f"checker={CHECKER.split()[-1]};level={level};seed={seed};n_conformers={N_CONFORMERS};"
         f"keep={KEEP};n_best={N_BEST};gtol={GTOL:g};selection_medium={medium};max_heavy={max_heavy}"
         + (";prerank=gfn2-single-point" if PRERANK else "")
+        + (";cross_seed=1" if cross_seed else "")
     )
 
 
@@ -289,8 +297,14 @@ def _parse(text: str) -> set[int]:
     return {int(t) for t in str(text).split(";") if t.strip() not in ("", "nan")}
 
 
-def compute_one(p: Pick, settings: str, seed: int = SEED) -> dict:
-    """Both chairs of one picked ring at MMFF94 and GFN2-xTB; one CSV row."""
+def compute_one(
+    p: Pick, settings: str, seed: int = SEED, solvent: str | None = None, cross_seed: bool = False
+) -> dict:
+    """Both chairs of one picked ring at MMFF94 and GFN2-xTB; one CSV row.
+
+    ``solvent``: tblite's ALPB implicit solvent by name (gas phase without);
+    ``cross_seed``: each chair also re-optimised from the other chair's best optimum,
+    forced through the flip (`libconf.compute.xtb.cross_seeded`, as training generator 4)."""
     from rdkit import Chem
 
     from .chairs import both_chairs
@@ -318,7 +332,15 @@ def compute_one(p: Pick, settings: str, seed: int = SEED) -> dict:
         heavy_fixed = tracked_atoms(pair)
         out["fixed_face_atoms"] = _fmt(heavy_fixed)
         out["mmff94_dE_1m0_kjmol"] = f"{pair.best(1).energy_kj - pair.best(0).energy_kj:.3f}"
-        res = axial_minus_equatorial(pair, p.reference_atom, n_best=N_BEST, gtol=GTOL, prerank=PRERANK)
+        res = axial_minus_equatorial(
+            pair,
+            p.reference_atom,
+            n_best=N_BEST,
+            solvent=solvent,
+            gtol=GTOL,
+            prerank=PRERANK,
+            cross_seed=cross_seed,
+        )
         ax = pair.axial_chair(p.reference_atom)
         by_chair = {ax: res.axial, 1 - ax: res.equatorial}
         best = {}
@@ -356,9 +378,13 @@ def run(
     wheel: Path = DEFAULT_WHEEL,
     max_heavy: int = MAX_HEAVY,
     stop_at: float | None = None,
+    solvent: str | None = None,
+    cross_seed: bool = False,
+    jobs: int = 1,
 ) -> Selection:
-    """Select, then compute the picked rings not yet in ``out_path``, appending one row each."""
-    settings = settings_string(seed, MEDIUM, max_heavy)
+    """Select, then compute the picked rings not yet in ``out_path``, appending one row each
+    as it finishes (with ``jobs`` > 1, in the order the worker processes finish them)."""
+    settings = settings_string(seed, MEDIUM, max_heavy, solvent, cross_seed)
     done = done_keys(out_path, settings)
     sel = select(read_library(wheel), n=n, seed=seed, max_heavy=max_heavy)
     print(sel.summary(), flush=True)
@@ -368,11 +394,30 @@ def run(
     if not out_path.exists():
         with open(out_path, "w", newline="", encoding="utf-8") as fh:
             csv.DictWriter(fh, fieldnames=COLUMNS).writeheader()
-    for i, p in enumerate(todo, 1):
-        if stop_at is not None and time.time() >= stop_at:
-            print("stop time reached; resume with the same command", flush=True)
-            break
-        row = compute_one(p, settings, seed)
+    def rows():
+        if jobs <= 1:
+            for p in todo:
+                if stop_at is not None and time.time() >= stop_at:
+                    print("stop time reached; resume with the same command", flush=True)
+                    return
+                yield compute_one(p, settings, seed, solvent, cross_seed)
+            return
+        from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+
+        queue = list(reversed(todo))
+        with ProcessPoolExecutor(jobs) as pool:
+            running = set()
+            while queue or running:
+                while queue and len(running) < jobs and (stop_at is None or time.time() < stop_at):
+                    running.add(pool.submit(compute_one, queue.pop(), settings, seed, solvent, cross_seed))
+                if not running:
+                    print("stop time reached; resume with the same command", flush=True)
+                    return
+                finished, running = wait(running, return_when=FIRST_COMPLETED)
+                for fut in finished:
+                    yield fut.result()
+
+    for i, row in enumerate(rows(), 1):
         # opened per row: a file replaced on disk meanwhile (a checkout) gets the row, not a lost inode
         with open(out_path, "a", newline="", encoding="utf-8") as fh:
             csv.DictWriter(fh, fieldnames=COLUMNS).writerow(row)
@@ -443,6 +488,7 @@ def evaluate(csv_path, medium: str = MEDIUM) -> dict:
     rows: list[EvalRow] = []
     levels: dict[str, tuple[float, float | None]] = {}
     n_total = n_failed = 0
+    level_names: set[str] = set()
     with open(csv_path, newline="", encoding="utf-8") as fh:
         for r in csv.DictReader(fh):
             n_total += 1
@@ -450,6 +496,7 @@ def evaluate(csv_path, medium: str = MEDIUM) -> dict:
                 n_failed += 1
                 continue
             d10 = float(r["gfn2_dE_1m0_kjmol"])
+            level_names.add(_level_of(r.get("settings", "")))
             m10 = float(r["mmff94_dE_1m0_kjmol"]) if r.get("mmff94_dE_1m0_kjmol") else None
             levels[r["id"]] = (d10, m10)
             ring_atoms = [int(a) for a in r["ring_atoms"].split(";")]
@@ -496,6 +543,7 @@ def evaluate(csv_path, medium: str = MEDIUM) -> dict:
     mae = sum(abs(x.dG_flip - x.dE) for x in scored) / len(scored) if scored else None
     return {
         "medium": medium,
+        "level": " + ".join(sorted(level_names)) or "GFN2-xTB gas",
         "rows": n_total,
         "failed": n_failed,
         "compared": len(scored),
@@ -512,12 +560,20 @@ def evaluate(csv_path, medium: str = MEDIUM) -> dict:
     }
 
 
+def _level_of(settings: str) -> str:
+    """The level of theory a row's ``settings`` records (``level=...``)."""
+    for part in settings.split(";"):
+        if part.startswith("level="):
+            return part[len("level="):] + (" cross-seeded" if "cross_seed=1" in settings else "")
+    return "GFN2-xTB gas"
+
+
 def format_evaluation(s: dict) -> str:
     def num(x, f=".2f"):
         return "-" if x is None else format(x, f)
 
     lines = [
-        f"Engine (medium {s['medium']}) against GFN2-xTB (gas phase), {s['compared']} rings compared "
+        f"Engine (medium {s['medium']}) against {s.get('level', 'GFN2-xTB gas')}, {s['compared']} rings compared "
         f"of {s['rows']} rows ({s['failed']} failed in 3D, {s['unmatched']} unmatched, "
         f"{s['no_preference']} where the engine now sees no preference)",
         "",
@@ -558,6 +614,13 @@ def main(argv=None) -> int:
     ap.add_argument(
         "--stop-at", type=float, default=None, help="UNIX time after which no new ring is started"
     )
+    ap.add_argument(
+        "--solvent", default=None, help="tblite ALPB implicit solvent by name, e.g. water (default: gas phase)"
+    )
+    ap.add_argument(
+        "--cross-seed", action="store_true", help="also start each chair from the other chair's best optimum"
+    )
+    ap.add_argument("--jobs", type=int, default=1, help="worker processes (one ring each; default 1)")
     ap.add_argument("--select-only", action="store_true", help="print the selection counts and stop")
     ap.add_argument("--evaluate", action="store_true", help="compare the engine now with the stored values")
     ap.add_argument("--medium", default=MEDIUM, help="engine medium for --evaluate (default nonpolar)")
@@ -569,7 +632,17 @@ def main(argv=None) -> int:
     if a.select_only:
         print(select(read_library(a.wheel), n=a.n, seed=a.seed, max_heavy=a.max_heavy).summary())
         return 0
-    run(a.out, n=a.n, seed=a.seed, wheel=a.wheel, max_heavy=a.max_heavy, stop_at=a.stop_at)
+    run(
+        a.out,
+        n=a.n,
+        seed=a.seed,
+        wheel=a.wheel,
+        max_heavy=a.max_heavy,
+        stop_at=a.stop_at,
+        solvent=a.solvent,
+        cross_seed=a.cross_seed,
+        jobs=a.jobs,
+    )
     return 0
 
 
