@@ -169,3 +169,36 @@ def test_damaged_gzip_is_a_fatal_error_naming_the_file(tmp_path):
     p.write_bytes(data[: len(data) // 2])
     with pytest.raises(FatalError, match="damaged.smi.gz"):
         list(read_records(spec_for(p)))
+
+
+AWKWARD_CSV = (
+    b"\xef\xbb\xbfsmiles,id,note\r\n"
+    b"CCO,a1,plain\r\n"
+    b'"C(Cl)Cl",a2,"quoted, with a comma"\r\n'
+    b'C1CCCCC1,a3,"a note\nover two lines"\r\n'
+    b"\r\n"
+    b"CC\xff\xfeN,a4,bad bytes\r\n"
+    b"CC\x00C,a5,a NUL\r\n"
+    b"CC\rC,a6,stray carriage return\r\n"
+    b'c1ccccc1,a7,"never closed\n'
+    b"CCN,a8,last line without an end of line"
+)
+
+
+@pytest.mark.parametrize("block", [1, 2, 3, 5, 17, 64])
+def test_block_reading_gives_the_records_of_one_large_block(tmp_path, monkeypatch, block):
+    """The text readers take the file a block at a time and split plain CSV lines
+    themselves (libconf/pipeline/readers.py, `_text_lines`, `_read_delimited`); block
+    boundaries inside a byte-order mark, a CRLF, a quoted line break or a bad UTF-8
+    sequence must change nothing."""
+    import libconf.pipeline.readers as readers
+
+    path = tmp_path / "awkward.csv"
+    path.write_bytes(AWKWARD_CSV)
+    smi = tmp_path / "awkward.smi"
+    smi.write_bytes(b"\xef\xbb\xbfCCO one\r\n# comment\n\nCC\xffO two\nc1ccccc1 three")
+    whole = [records(path)[1], records(smi)[1]]
+    assert [r.mol_id for r in whole[0]][:3] == ["a1", "a2", "a3"]
+    assert any(r.kind == "error" and "UTF-8" in r.reason for r in whole[0])
+    monkeypatch.setattr(readers, "_BLOCK_BYTES", block)
+    assert [records(path)[1], records(smi)[1]] == whole

@@ -182,6 +182,57 @@ def _lines(spec: InputSpec, fh: BinaryIO) -> Iterator[tuple[int, bytes]]:
         raise _read_error(spec, exc) from exc
 
 
+#: Bytes read from a (decompressed) text input at a time.
+_BLOCK_BYTES = 1 << 20
+_BOM = b"\xef\xbb\xbf"
+
+
+def _text_lines(spec: InputSpec, fh: BinaryIO) -> Iterator[tuple[int, str, str | None]]:
+    """(1-based line number, line text without its ``\\n``, reason if the line had bytes
+    that are not UTF-8) for a text input.
+
+    The same lines as iterating the binary file and decoding each (``_lines``,
+    ``_decode``), read a block at a time and decoded a block at a time: a line-by-line
+    read and decode cost more than half of the main process's time on a large file. A
+    block that does not decode is decoded line by line, so a bad line gets its own reason.
+    """
+    lineno = 0
+    rest = b""
+    first = True
+    try:
+        while True:
+            block = fh.read(_BLOCK_BYTES)
+            if not block:
+                break
+            end = block.rfind(b"\n")
+            if end < 0:
+                rest += block
+                continue
+            whole, rest = rest + block[:end], block[end + 1 :]
+            if first:  # the first line, whole: drop a UTF-8 byte-order mark
+                first = False
+                whole = whole[3:] if whole.startswith(_BOM) else whole
+            try:
+                texts = whole.decode("utf-8").split("\n")
+            except UnicodeDecodeError:
+                for raw in whole.split(b"\n"):
+                    lineno += 1
+                    text, bad = _decode(raw, lineno)
+                    yield lineno, text, bad
+                continue
+            for text in texts:
+                lineno += 1
+                yield lineno, text, None
+        if rest:
+            if first:
+                rest = rest[3:] if rest.startswith(_BOM) else rest
+            lineno += 1
+            text, bad = _decode(rest, lineno)
+            yield lineno, text, bad
+    except (OSError, EOFError, gzip.BadGzipFile) as exc:
+        raise _read_error(spec, exc) from exc
+
+
 def read_records(spec: InputSpec) -> Iterator[Record]:
     """Stream the records of one input (see the module docstring for what counts)."""
     readers = {
@@ -213,8 +264,7 @@ def _read_smiles(spec: InputSpec) -> Iterator[Record]:
     row = 0
     seen_content = False
     with open_binary(spec) as fh:
-        for lineno, line in _lines(spec, fh):
-            text, bad = _decode(line, lineno)
+        for _, text, bad in _text_lines(spec, fh):
             text = _strip_eol(text)
             stripped = text.strip()
             if not stripped or stripped.startswith("#"):
@@ -245,21 +295,32 @@ def _read_smiles(spec: InputSpec) -> Iterator[Record]:
 
 
 class _LineFeed:
-    """Decoded lines for csv.reader, remembering the raw text and bad bytes of a row."""
+    """Decoded lines for csv.reader, remembering the raw text and bad bytes of a row.
+
+    ``lines`` is shared with the caller, which may take plain lines itself and hand one
+    back (``push``) for csv.reader to parse, together with any continuation lines a
+    quoted field needs."""
 
     def __init__(self, spec: InputSpec, fh: BinaryIO) -> None:
-        self._lines = _lines(spec, fh)
+        self.lines = _text_lines(spec, fh)
         self.pending: list[str] = []
         self.bad: str | None = None
+        self._pushed: tuple[str, str | None] | None = None
 
     def __iter__(self) -> _LineFeed:
         return self
 
+    def push(self, text: str, bad: str | None) -> None:
+        self._pushed = (text, bad)
+
     def __next__(self) -> str:
-        lineno, line = next(self._lines)
-        text, bad = _decode(line, lineno)
+        if self._pushed is not None:
+            (text, bad), self._pushed = self._pushed, None
+        else:
+            _, text, bad = next(self.lines)
         if bad is not None and self.bad is None:
             self.bad = bad
+        text += "\n"
         self.pending.append(text)
         return text
 
@@ -351,23 +412,32 @@ def _read_delimited(spec: InputSpec) -> Iterator[Record]:
         reader = _csv_reader(feed, spec)
         header: list[str] | None = None
         s_idx = i_idx = None
-        while True:
-            try:
-                fields = next(reader)
-            except StopIteration:
-                break
-            except csv.Error as exc:
+        delimiter = _delimiter(spec)
+        for _, text, bad in feed.lines:
+            # Most lines hold no quote, NUL or stray carriage return: split them here. The
+            # rest go to csv.reader, which also takes the continuation lines of a quoted
+            # field with a line break in it.
+            plain = text[:-1] if text.endswith("\r") else text
+            if '"' in plain or "\r" in plain or "\x00" in plain:
+                feed.push(text, bad)
+                try:
+                    fields = next(reader)
+                except StopIteration:
+                    break
+                except csv.Error as exc:
+                    raw, bad = feed.take()
+                    yield _error(
+                        spec,
+                        row,
+                        _default_id(spec, row),
+                        raw,
+                        f"row could not be split into columns ({exc})",
+                    )
+                    row += 1
+                    continue
                 raw, bad = feed.take()
-                yield _error(
-                    spec,
-                    row,
-                    _default_id(spec, row),
-                    raw,
-                    f"row could not be split into columns ({exc})",
-                )
-                row += 1
-                continue
-            raw, bad = feed.take()
+            else:
+                fields, raw = plain.split(delimiter), plain
             if not fields or all(not f.strip() for f in fields):
                 spec.skipped_lines += 1
                 continue

@@ -558,11 +558,11 @@ class _Executor:
 
 def _merge(chunk: int, parts: list[ChunkResult]) -> ChunkResult:
     """One chunk's result from the results of its pieces, in order."""
-    tables = {t: pa.concat_tables([p.tables[t] for p in parts]) for t in TABLES}
+    columns = {t: {c: [v for p in parts for v in p.columns[t][c]] for c in parts[0].columns[t]} for t in TABLES}
     counts: collections.Counter = collections.Counter()
     for p in parts:
         counts.update(p.counts)
-    return ChunkResult(chunk, tables, dict(counts))
+    return ChunkResult(chunk, columns, dict(counts))
 
 
 # --- execution on a Dask cluster ---------------------------------------------------------

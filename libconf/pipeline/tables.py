@@ -115,12 +115,25 @@ class TableBuffer:
         for name, col in self._value_columns:
             col.append(get(name))
 
+    def append_values(self, key: tuple[str, str, int], values: tuple) -> None:
+        """Append one row given as the value columns' values, in schema order."""
+        for col, v in zip(self._key_columns, key):
+            col.append(v)
+        for (_, col), v in zip(self._value_columns, values):
+            col.append(v)
+
     def __len__(self) -> int:
         return len(self.columns["mol_id"])
 
     def to_arrow(self) -> pa.Table:
-        arrays = [pa.array(self.columns[f.name], type=f.type) for f in self.schema]
-        return pa.Table.from_arrays(arrays, schema=self.schema)
+        return columns_to_arrow(self.name, self.columns)
+
+
+def columns_to_arrow(name: str, columns: dict[str, list]) -> pa.Table:
+    """A table's column lists (as `TableBuffer` holds them) as a pyarrow.Table."""
+    schema = SCHEMAS[name]
+    arrays = [pa.array(columns[f.name], type=f.type) for f in schema]
+    return pa.Table.from_arrays(arrays, schema=schema)
 
 
 def part_name(chunk: int) -> str:
