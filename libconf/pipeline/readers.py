@@ -438,6 +438,20 @@ def _read_delimited(spec: InputSpec) -> Iterator[Record]:
                 raw, bad = feed.take()
             else:
                 fields, raw = plain.split(delimiter), plain
+                if header is not None and bad is None and s_idx < len(fields):
+                    smiles = fields[s_idx].strip()
+                    if smiles:  # the common row: a SMILES where the header says
+                        mol_id = fields[i_idx].strip() if i_idx is not None and i_idx < len(fields) else ""
+                        yield Record(
+                            spec.input_file,
+                            row,
+                            mol_id or _default_id(spec, row),
+                            "smiles",
+                            smiles,
+                            _raw_unless_text(raw, smiles),
+                        )
+                        row += 1
+                        continue
             if not fields or all(not f.strip() for f in fields):
                 spec.skipped_lines += 1
                 continue
