@@ -15,6 +15,7 @@ from libconf.compute.external_check import CLEAR_KJ, COLUMNS, evaluate
 
 CSV = Path(__file__).resolve().parents[1] / "datasets" / "computed" / "external_check.csv"
 CSV_V2 = CSV.with_name("external_check_v2.csv")
+CSV_V3 = CSV.with_name("external_check_v3.csv")
 
 # Issue #4 thresholds (project requirement, not a literature value).
 MIN_AGREEMENT = 0.90
@@ -22,6 +23,8 @@ MIN_SPEARMAN = 0.80
 # Measured on the committed CSVs with the engine and model of 2026-12-02 (datasets/computed/README.md).
 MEASURED = "agreement 0.712 (73 rings with |dE| > 2 kJ/mol), Spearman 0.32, medium nonpolar"
 MEASURED_V2 = "agreement 0.710 (62 rings with |dE| > 2 kJ/mol), Spearman 0.27, medium nonpolar"
+# version 3: GFN2-xTB with ALPB water, cross-seeded chairs; engine medium water
+MEASURED_V3 = "agreement 0.774 (62 rings with |dE| > 2 kJ/mol), Spearman 0.31, medium water"
 
 
 def _rows():
@@ -45,6 +48,28 @@ def measured():
 @pytest.fixture(scope="module")
 def measured_v2():
     return evaluate(CSV_V2)
+
+
+@pytest.fixture(scope="module")
+def measured_v3():
+    return evaluate(CSV_V3, medium="water")
+
+
+def test_water_reference_names_its_level_and_evaluates_to_numbers(measured_v3):
+    assert measured_v3["level"] == "GFN2-xTB ALPB(water) cross-seeded"
+    assert measured_v3["compared"] >= 80
+    assert 0.0 <= measured_v3["agreement"] <= 1.0
+    assert -1.0 <= measured_v3["spearman"] <= 1.0
+
+
+def test_settings_string_records_solvent_and_cross_seeding():
+    from libconf.compute.external_check import _level_of, settings_string
+
+    assert "level=GFN2-xTB gas" in settings_string()
+    assert "cross_seed" not in settings_string()
+    s = settings_string(solvent="water", cross_seed=True)
+    assert "level=GFN2-xTB ALPB(water)" in s and s.endswith(";cross_seed=1")
+    assert _level_of(s) == "GFN2-xTB ALPB(water) cross-seeded"
 
 
 def test_committed_csv_evaluates_to_numbers(measured):
@@ -117,3 +142,9 @@ def test_issue_4_thresholds(measured):
 def test_issue_4_thresholds_denser_reference(measured_v2):
     assert measured_v2["agreement"] >= MIN_AGREEMENT
     assert measured_v2["spearman"] >= MIN_SPEARMAN
+
+
+@pytest.mark.xfail(strict=False, reason=f"issue #4 thresholds not met: measured {MEASURED_V3}")
+def test_issue_4_thresholds_water_reference(measured_v3):
+    assert measured_v3["agreement"] >= MIN_AGREEMENT
+    assert measured_v3["spearman"] >= MIN_SPEARMAN
