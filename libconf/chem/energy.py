@@ -115,7 +115,7 @@ def ensure_group_class(mol: Chem.Mol, sub: Substituent) -> str:
     return sub.group_class
 
 
-@lru_cache(maxsize=100_000)
+@lru_cache(maxsize=16_384)  # bounded: a worker's memory must not grow with the library
 def _a_value_in_context(
     P: Parameters,
     key: str,

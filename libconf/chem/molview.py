@@ -201,7 +201,7 @@ class _Walker:
         return "".join(out)
 
 
-@lru_cache(maxsize=65536)
+@lru_cache(maxsize=16_384)
 def canonical_walked(smiles: str) -> str:
     """RDKit's canonical form of a walked group SMILES (once per distinct string)."""
     with rdBase.BlockLogs():

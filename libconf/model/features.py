@@ -48,7 +48,7 @@ CONTEXT_FEATURES = [f"{el}_at_{d}" for d in (1, 2, 3) for el in _CONTEXT_ELEMENT
 FEATURE_NAMES = tuple(GROUP_FEATURES + CONTEXT_FEATURES)
 
 
-@lru_cache(maxsize=50_000)
+@lru_cache(maxsize=4_096)  # bounded; called only when the context cache misses
 def group_features(key: str) -> tuple[float, ...] | None:
     """Features of a group SMILES with one ``*``; None when it cannot be read."""
     if key.count("*") != 1:

@@ -469,7 +469,15 @@ class _Executor:
         self.window = max(2 * jobs, 2)
 
     def _pool(self, workers: int):
-        return self._get(workers, timeout=60)
+        """The process pool with ``workers`` processes. Fetched once, not per chunk: each
+        fetch makes joblib register a new temporary folder with its resource tracker.
+        Fetched again after a worker died (the pool is then broken) or to resize it."""
+        cached = self.__dict__.get("_cached_pool")
+        if cached is not None and cached[0] == workers and not _is_broken(cached[1]):
+            return cached[1]
+        pool = self._get(workers, timeout=60)
+        self._cached_pool = (workers, pool)
+        return pool
 
     def _submit(self, chunk: int, records: list[Record]):
         return self._pool(self.jobs).submit(analyse_chunk, chunk, records, self.options, self.analyzer)
@@ -554,6 +562,12 @@ class _Executor:
         one = analyse_chunk(chunk, [failed], self.options, self.analyzer)
         one.counts[count_key] = 1
         return one
+
+
+def _is_broken(pool) -> bool:
+    """Whether a loky pool can take no more work (a worker died, or it was shut down)."""
+    flags = getattr(pool, "_flags", None)
+    return flags is None or bool(getattr(flags, "broken", None)) or bool(getattr(flags, "shutdown", False))
 
 
 def _merge(chunk: int, parts: list[ChunkResult]) -> ChunkResult:
