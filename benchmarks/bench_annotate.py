@@ -5,6 +5,7 @@ package ships the MOSES training split (about 1.58 M SMILES) as a gzipped CSV.
 
     python benchmarks/bench_annotate.py --scratch /tmp/libconf-bench            # 100 k
     python benchmarks/bench_annotate.py --scratch /tmp/libconf-bench --full     # + 1.58 M
+    python benchmarks/bench_annotate.py --scratch /tmp/libconf-bench --pairs 3  # ratio spread
 
 Measures, on the first ``--n`` molecules: a bare single-process RDKit
 ``MolFromSmiles`` loop (the floor any SMILES tool pays), ``annotate --jobs 1`` and
@@ -136,7 +137,20 @@ def main() -> None:
     ap.add_argument("--scratch", type=Path, required=True, help="download/work directory")
     ap.add_argument("--n", type=int, default=100_000, help="molecules for the comparison")
     ap.add_argument("--full", action="store_true", help="also run the full training split")
+    ap.add_argument(
+        "--pairs",
+        type=int,
+        default=0,
+        help="only alternate the bare loop and `annotate --jobs 2` this many times (ratio spread on a noisy machine)",
+    )
     args = ap.parse_args()
+    if args.pairs:
+        sample = head(fetch_training_split(args.scratch), args.n, args.scratch / f"moses_train_{args.n}.csv.gz")
+        for _ in range(args.pairs):
+            t_rdkit, _n = bare_rdkit_loop(sample)
+            r = run_annotate([sample], args.scratch / "run_pair", 2)
+            print(f"- bare {t_rdkit:.1f} s, `annotate --jobs 2` {r['wall_s']:.1f} s: ratio {r['wall_s'] / t_rdkit:.2f}")
+        return
 
     train = fetch_training_split(args.scratch)
     sample = head(train, args.n, args.scratch / f"moses_train_{args.n}.csv.gz")
