@@ -144,16 +144,15 @@ def main() -> None:
         help="only alternate the bare loop and `annotate --jobs 2` this many times (ratio spread on a noisy machine)",
     )
     args = ap.parse_args()
+
+    train = fetch_training_split(args.scratch)
+    sample = head(train, args.n, args.scratch / f"moses_train_{args.n}.csv.gz")
     if args.pairs:
-        sample = head(fetch_training_split(args.scratch), args.n, args.scratch / f"moses_train_{args.n}.csv.gz")
         for _ in range(args.pairs):
             t_rdkit, _n = bare_rdkit_loop(sample)
             r = run_annotate([sample], args.scratch / "run_pair", 2)
             print(f"- bare {t_rdkit:.1f} s, `annotate --jobs 2` {r['wall_s']:.1f} s: ratio {r['wall_s'] / t_rdkit:.2f}")
         return
-
-    train = fetch_training_split(args.scratch)
-    sample = head(train, args.n, args.scratch / f"moses_train_{args.n}.csv.gz")
     t_rdkit, n = bare_rdkit_loop(sample)
     runs = {jobs: run_annotate([sample], args.scratch / f"run_{jobs}", jobs) for jobs in (1, 2)}
     full = run_annotate([train], args.scratch / "run_full", 2) if args.full else None

@@ -14,6 +14,7 @@ import argparse
 import csv
 import json
 import sys
+from collections import Counter
 from pathlib import Path
 
 from .artefact import MODEL_FILE, models_dir
@@ -22,16 +23,14 @@ from .features import CONTEXT_FEATURES, GROUP_FEATURES
 ROOT = Path(__file__).resolve().parents[2]
 
 
-
 def _chosen_settings(nested: dict) -> str:
     """'setting X' or 'settings X (n folds) and Y (m folds)', most chosen first."""
-    from collections import Counter
-
     counts = Counter(nested["chosen_per_fold"]).most_common()
     if len(counts) == 1:
         return f"setting {nested['settings'][counts[0][0]]} in every fold"
     parts = [f"{nested['settings'][k]} ({n} fold{'s' if n > 1 else ''})" for k, n in counts]
     return "settings " + ", ".join(parts[:-1]) + " and " + parts[-1]
+
 
 def _level_table() -> str:
     path = ROOT / "datasets" / "computed" / "level_of_theory.csv"

@@ -438,21 +438,9 @@ def _read_delimited(spec: InputSpec) -> Iterator[Record]:
                 raw, bad = feed.take()
             else:
                 fields, raw = plain.split(delimiter), plain
-                if header is not None and bad is None and s_idx < len(fields):
-                    smiles = fields[s_idx].strip()
-                    if smiles:  # the common row: a SMILES where the header says
-                        mol_id = fields[i_idx].strip() if i_idx is not None and i_idx < len(fields) else ""
-                        yield Record(
-                            spec.input_file,
-                            row,
-                            mol_id or _default_id(spec, row),
-                            "smiles",
-                            smiles,
-                            _raw_unless_text(raw, smiles),
-                        )
-                        row += 1
-                        continue
-            if not fields or all(not f.strip() for f in fields):
+            smiles = fields[s_idx].strip() if header is not None and s_idx < len(fields) else ""
+            # a row with a SMILES is not blank; only the others need the whole-row test
+            if not smiles and (not fields or all(not f.strip() for f in fields)):
                 spec.skipped_lines += 1
                 continue
             if header is None:
@@ -477,10 +465,9 @@ def _read_delimited(spec: InputSpec) -> Iterator[Record]:
                     f"row has {len(fields)} columns, so no value in the SMILES column "
                     f"{header[s_idx]!r} (column {s_idx + 1})",
                 )
-            elif not fields[s_idx].strip():
+            elif not smiles:
                 yield _error(spec, row, mol_id, raw, f"empty SMILES in column {header[s_idx]!r}")
             else:
-                smiles = fields[s_idx].strip()
                 yield Record(spec.input_file, row, mol_id, "smiles", smiles, _raw_unless_text(raw, smiles))
             row += 1
 

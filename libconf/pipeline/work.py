@@ -338,35 +338,23 @@ def _analyse_record(
         counts["locked_scaffolds"] += 1
 
 
-_NO_RING_ROW: dict | None = None
-
-
-def _no_ring_row(result) -> dict:
-    """The molecule row every molecule without a saturated six-membered ring shares
-    (built once per process: most records of a library take this path)."""
-    global _NO_RING_ROW
-    if _NO_RING_ROW is None:
-        _NO_RING_ROW = dict(result.molecule_row())
-    return _NO_RING_ROW
-
-
 _NO_RING_VALUES: tuple | None = None
 
 
 def _no_ring_values(result) -> tuple:
-    """`_no_ring_row`'s values in the molecules table's column order after
-    ``smiles`` and ``n_heavy_atoms``."""
+    """The molecules-table values (after ``smiles`` and ``n_heavy_atoms``, in column
+    order) that every molecule without a saturated six-membered ring shares; built once
+    per process, since most records of a library take this path."""
     global _NO_RING_VALUES
     if _NO_RING_VALUES is None:
-        row = _no_ring_row(result)
+        row = result.molecule_row()
         _NO_RING_VALUES = tuple(row.get(c) for c in MOLECULE_COLUMNS[2:])
     return _NO_RING_VALUES
 
 
 def _result_rows(result) -> tuple[dict, list[dict], list[dict]]:
-    if not result.rings:
-        mol_row = {**_no_ring_row(result), "smiles": result.smiles, "n_heavy_atoms": result.n_heavy_atoms}
-        return mol_row, [], []
+    """Molecule, ring and substituent rows of a result with rings (ring-free results
+    take `_no_ring_values`)."""
     mol_row = dict(result.molecule_row())
     mol_row["smiles"] = result.smiles
     mol_row["n_heavy_atoms"] = result.n_heavy_atoms
