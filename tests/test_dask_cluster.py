@@ -213,3 +213,29 @@ def test_workers_with_other_parameter_tables_are_refused(client, tmp_path, monke
     with pytest.raises(FatalError, match="install the same version on every worker"):
         annotate(CURATED[:1], tmp_path / "v", scheduler=client)
     assert not (tmp_path / "v").exists()
+
+
+def test_a_client_that_never_answers_stops_the_run_with_a_fatal_error(tmp_path, monkeypatch):
+    # a Client() that neither connects nor fails (seen once on a closed port) must not hang the run
+    import threading
+
+    import distributed
+
+    import libconf.pipeline.run as run
+
+    release = threading.Event()
+
+    class SilentClient:
+        def __init__(self, *args, **kwargs):
+            release.wait(30)
+            raise OSError("released by the test")
+
+    monkeypatch.setattr(distributed, "Client", SilentClient)
+    monkeypatch.setattr(run, "DASK_CONNECT_TIMEOUT_S", 0.2)
+    monkeypatch.setattr(run, "DASK_CONNECT_GRACE_S", 0.3)
+    try:
+        with pytest.raises(FatalError, match=r"cannot reach the Dask scheduler at tcp://127\.0\.0\.1:9.*no answer within 0\.5 s"):
+            annotate(CURATED[:1], tmp_path / "c", scheduler="tcp://127.0.0.1:9")
+    finally:
+        release.set()
+    assert not (tmp_path / "c").exists()

@@ -93,6 +93,8 @@ COLUMNS = [
     "mmff94_dE_1m0_kjmol",
     "n_usable_chair0",
     "n_usable_chair1",
+    "gfn2_E_chair0_eh",
+    "gfn2_E_chair1_eh",
     "status",
     "seconds",
     "settings",
@@ -105,6 +107,7 @@ def settings_string(
     max_heavy: int = MAX_HEAVY,
     solvent: str | None = None,
     cross_seed: bool = False,
+    sampling_seed: int | None = None,
 ) -> str:
     level = f"GFN2-xTB ALPB({solvent})" if solvent else "GFN2-xTB gas"
     return (
@@ -112,6 +115,7 @@ def settings_string(
         f"keep={KEEP};n_best={N_BEST};gtol={GTOL:g};selection_medium={medium};max_heavy={max_heavy}"
         + (";prerank=gfn2-single-point" if PRERANK else "")
         + (";cross_seed=1" if cross_seed else "")
+        + (f";sampling_seed={sampling_seed}" if sampling_seed not in (None, seed) else "")
     )
 
 
@@ -354,6 +358,8 @@ def compute_one(
         else:
             sig = {c: _axial_set(pair, best[c].result.positions, heavy_fixed) for c in (0, 1)}
             out["axial_chair0"], out["axial_chair1"] = _fmt(sig[0]), _fmt(sig[1])
+            out["gfn2_E_chair0_eh"] = f"{best[0].result.energy_eh:.8f}"
+            out["gfn2_E_chair1_eh"] = f"{best[1].result.energy_eh:.8f}"
             d10 = (best[1].result.energy_eh - best[0].result.energy_eh) * HARTREE_KJ
             out["gfn2_dE_1m0_kjmol"] = f"{d10:.3f}"
             major = engine_major_3d(p.smiles, p.ring_atoms, sig[0], sig[1], heavy_fixed, MEDIUM)
@@ -381,10 +387,17 @@ def run(
     solvent: str | None = None,
     cross_seed: bool = False,
     jobs: int = 1,
+    sampling_seed: int | None = None,
 ) -> Selection:
     """Select, then compute the picked rings not yet in ``out_path``, appending one row each
-    as it finishes (with ``jobs`` > 1, in the order the worker processes finish them)."""
-    settings = settings_string(seed, MEDIUM, max_heavy, solvent, cross_seed)
+    as it finishes (with ``jobs`` > 1, in the order the worker processes finish them).
+
+    ``seed`` fixes the selection; ``sampling_seed`` (default: ``seed``) the 3D embedding,
+    so a second run with another sampling seed repeats the same rings with independent
+    conformer sampling (`compare_references` then measures how far the reference itself
+    reproduces)."""
+    settings = settings_string(seed, MEDIUM, max_heavy, solvent, cross_seed, sampling_seed)
+    embed_seed = seed if sampling_seed is None else sampling_seed
     done = done_keys(out_path, settings)
     sel = select(read_library(wheel), n=n, seed=seed, max_heavy=max_heavy)
     print(sel.summary(), flush=True)
@@ -400,7 +413,7 @@ def run(
                 if stop_at is not None and time.time() >= stop_at:
                     print("stop time reached; resume with the same command", flush=True)
                     return
-                yield compute_one(p, settings, seed, solvent, cross_seed)
+                yield compute_one(p, settings, embed_seed, solvent, cross_seed)
             return
         from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 
@@ -409,7 +422,7 @@ def run(
             running = set()
             while queue or running:
                 while queue and len(running) < jobs and (stop_at is None or time.time() < stop_at):
-                    running.add(pool.submit(compute_one, queue.pop(), settings, seed, solvent, cross_seed))
+                    running.add(pool.submit(compute_one, queue.pop(), settings, embed_seed, solvent, cross_seed))
                 if not running:
                     print("stop time reached; resume with the same command", flush=True)
                     return
@@ -560,6 +573,94 @@ def evaluate(csv_path, medium: str = MEDIUM) -> dict:
     }
 
 
+def _reference_rows(csv_path) -> dict:
+    """(library_row, ring_index) -> (axial set of chair 0, of chair 1, E1 - E0 in kJ/mol)
+    for the usable rows of a reference file."""
+    out = {}
+    with open(csv_path, newline="", encoding="utf-8") as fh:
+        for r in csv.DictReader(fh):
+            if r["status"] == "ok" and r["gfn2_dE_1m0_kjmol"]:
+                key = (int(r["library_row"]), int(r["ring_index"]))
+                out[key] = (
+                    frozenset(_parse(r["axial_chair0"])),
+                    frozenset(_parse(r["axial_chair1"])),
+                    float(r["gfn2_dE_1m0_kjmol"]),
+                )
+    return out
+
+
+def compare_references(csv_a, csv_b) -> dict:
+    """How far two reference runs of the same rings agree, with no engine involved.
+
+    Chairs are matched by their axial sets (as `evaluate` matches the engine's). Run A is
+    then scored exactly as `evaluate` scores the engine against run B: A's gap |dE_A|
+    plays dG_flip and B's dE, signed E(A's minor chair) - E(A's major), plays the
+    reference; and the other way round. A predictor that reproduced one run perfectly
+    could score no better than this against the other: the figures are the ceiling that
+    sampling noise puts on the check's agreement and Spearman rho."""
+    from ..audit import _spearman
+
+    a, b = _reference_rows(csv_a), _reference_rows(csv_b)
+    pairs, unmatched = [], 0
+    for key in sorted(a.keys() & b.keys()):
+        a0, a1, da = a[key]
+        b0, b1, db = b[key]
+        if (b0, b1) == (a0, a1):
+            pairs.append((da, db))
+        elif (b0, b1) == (a1, a0):
+            pairs.append((da, -db))
+        else:
+            unmatched += 1
+
+    def score(pred, ref):
+        # pred's gap and ref's energy of pred's minor chair minus its major chair
+        gap = [abs(p) for p in pred]
+        signed = [r if p > 0 else -r for p, r in zip(pred, ref)]
+        clear = [s for s, r in zip(signed, ref) if abs(r) > CLEAR_KJ]
+        return {
+            "agreement": sum(s > 0 for s in clear) / len(clear) if clear else None,
+            "clear_rings": len(clear),
+            "spearman": _spearman(gap, signed),
+        }
+
+    da = [p[0] for p in pairs]
+    db = [p[1] for p in pairs]
+    return {
+        "a": str(csv_a),
+        "b": str(csv_b),
+        "common": len(a.keys() & b.keys()),
+        "compared": len(pairs),
+        "unmatched": unmatched,
+        "a_as_predictor": score(da, db),
+        "b_as_predictor": score(db, da),
+        "spearman_signed": _spearman(da, db),
+        "mad_kjmol": sum(abs(x - y) for x, y in pairs) / len(pairs) if pairs else None,
+    }
+
+
+def format_comparison(c: dict) -> str:
+    def pct(s):
+        return "-" if s["agreement"] is None else f"{100 * s['agreement']:.1f} % of {s['clear_rings']}"
+
+    def num(x):
+        return "-" if x is None else f"{x:.2f}"
+
+    return "\n".join(
+        [
+            f"Reference against reference: {c['a']} and {c['b']}, {c['compared']} rings with matching "
+            f"chairs of {c['common']} usable in both ({c['unmatched']} with different axial sets)",
+            "",
+            "| scored as the check scores the engine | preferred chair agrees | Spearman rho |",
+            "|---|---|---|",
+            f"| first run's gaps against the second run | {pct(c['a_as_predictor'])} | {num(c['a_as_predictor']['spearman'])} |",
+            f"| second run's gaps against the first run | {pct(c['b_as_predictor'])} | {num(c['b_as_predictor']['spearman'])} |",
+            "",
+            f"Signed E(chair 1) - E(chair 0): Spearman {num(c['spearman_signed'])}, "
+            f"mean absolute difference {num(c['mad_kjmol'])} kJ/mol.",
+        ]
+    )
+
+
 def _level_of(settings: str) -> str:
     """The level of theory a row's ``settings`` records (``level=...``)."""
     for part in settings.split(";"):
@@ -608,7 +709,17 @@ def main(argv=None) -> int:
     )
     ap.add_argument("--out", type=Path, required=True, help="CSV of computed rings (appended, resumable)")
     ap.add_argument("--n", type=int, default=100, help="rings to pick (default 100)")
-    ap.add_argument("--seed", type=int, default=SEED)
+    ap.add_argument("--seed", type=int, default=SEED, help="selection seed (and, by default, sampling seed)")
+    ap.add_argument(
+        "--sampling-seed", type=int, default=None, help="seed of the 3D sampling only (same rings, new conformers)"
+    )
+    ap.add_argument(
+        "--compare",
+        type=Path,
+        default=None,
+        metavar="OTHER_CSV",
+        help="with --out: how far two reference runs of the same rings agree (no engine involved)",
+    )
     ap.add_argument("--wheel", type=Path, default=DEFAULT_WHEEL, help="the molsets 0.3.1 wheel")
     ap.add_argument("--max-heavy", type=int, default=MAX_HEAVY)
     ap.add_argument(
@@ -626,6 +737,9 @@ def main(argv=None) -> int:
     ap.add_argument("--medium", default=MEDIUM, help="engine medium for --evaluate (default nonpolar)")
     a = ap.parse_args(argv)
     os.environ.setdefault("OMP_NUM_THREADS", "1")
+    if a.compare is not None:
+        print(format_comparison(compare_references(a.out, a.compare)))
+        return 0
     if a.evaluate:
         print(format_evaluation(evaluate(a.out, medium=a.medium)))
         return 0
@@ -642,6 +756,7 @@ def main(argv=None) -> int:
         solvent=a.solvent,
         cross_seed=a.cross_seed,
         jobs=a.jobs,
+        sampling_seed=a.sampling_seed,
     )
     return 0
 

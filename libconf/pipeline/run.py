@@ -24,6 +24,7 @@ import platform
 import shutil
 import sys
 import tempfile
+import threading
 import time
 from collections.abc import Callable, Iterable, Iterator, Sequence
 from typing import Any, BinaryIO
@@ -583,6 +584,7 @@ def _merge(chunk: int, parts: list[ChunkResult]) -> ChunkResult:
 
 #: Seconds to wait for the scheduler to answer, and for a first worker to join it.
 DASK_CONNECT_TIMEOUT_S = 10.0
+DASK_CONNECT_GRACE_S = 20.0  # beyond the connect timeout, before giving up on a silent Client()
 DASK_WORKER_WAIT_S = 30.0
 
 
@@ -601,7 +603,7 @@ def _connect(scheduler: Any) -> tuple[Any, bool]:
         raise UsageError(f"--scheduler must be an address such as tcp://host:8786 (got {scheduler!r})")
     address = scheduler.strip()
     try:
-        client = Client(address, timeout=DASK_CONNECT_TIMEOUT_S, set_as_default=False)
+        client = _client_within(Client, address, DASK_CONNECT_TIMEOUT_S)
     except ValueError as exc:  # unknown scheme, malformed address
         raise UsageError(f"--scheduler {address}: {exc}") from exc
     except Exception as exc:  # OSError, TimeoutError, and whatever else a failed connect raises
@@ -610,6 +612,29 @@ def _connect(scheduler: Any) -> tuple[Any, bool]:
             "with `dask scheduler` and workers with `dask worker ADDRESS`, or check the address"
         ) from exc
     return client, True
+
+
+def _client_within(Client, address: str, timeout: float):
+    """``Client(address, timeout=timeout)``, but never waiting much longer than asked: the
+    constructor runs in a daemon thread, and if it has neither connected nor failed a
+    grace period after its own timeout (one test run saw it wait more than 18 minutes on
+    a closed port), the run stops with a TimeoutError instead of hanging."""
+    box: dict = {}
+
+    def connect() -> None:
+        try:
+            box["client"] = Client(address, timeout=timeout, set_as_default=False)
+        except BaseException as exc:  # handed to the caller's thread
+            box["error"] = exc
+
+    t = threading.Thread(target=connect, name="libconf-dask-connect", daemon=True)
+    t.start()
+    t.join(timeout + DASK_CONNECT_GRACE_S)
+    if "error" in box:
+        raise box["error"]
+    if "client" not in box:
+        raise TimeoutError(f"no answer within {timeout + DASK_CONNECT_GRACE_S:g} s")
+    return box["client"]
 
 
 def _worker_versions() -> tuple[str, str, str]:
