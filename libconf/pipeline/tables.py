@@ -11,10 +11,17 @@ import os
 import pyarrow as pa
 import pyarrow.parquet as pq
 
+from libconf.pipeline.columns import (  # noqa: F401  (re-exported)
+    ERROR_COLUMNS,
+    KEY_COLUMNS,
+    MOLECULE_COLUMNS,
+    RING_COLUMNS,
+    SUBSTITUENT_COLUMNS,
+    TABLE_COLUMNS,
+    TABLES,
+    TableBuffer,
+)
 from libconf.pipeline.failures import FatalError
-from libconf.results import MoleculeResult, RingResult, SubstituentResult
-
-TABLES = ("molecules", "rings", "substituents", "errors")
 
 _KEY = [
     pa.field("mol_id", pa.string(), nullable=False),
@@ -74,11 +81,6 @@ COLUMN_TYPES: dict[str, pa.DataType] = {
     "stage": _STR,
 }
 
-#: Columns of each table after the three key columns, in order.
-MOLECULE_COLUMNS = ("smiles", "n_heavy_atoms", *MoleculeResult.COLUMNS)
-RING_COLUMNS = tuple(RingResult.COLUMNS)
-SUBSTITUENT_COLUMNS = tuple(SubstituentResult.COLUMNS)
-ERROR_COLUMNS = ("reason", "raw", "stage")
 
 
 def _schema(columns: tuple[str, ...]) -> pa.Schema:
@@ -89,44 +91,14 @@ def _schema(columns: tuple[str, ...]) -> pa.Schema:
     return pa.schema(_KEY + [pa.field(c, COLUMN_TYPES[c]) for c in columns])
 
 
+assert tuple(f.name for f in _KEY) == KEY_COLUMNS
+
 SCHEMAS: dict[str, pa.Schema] = {
     "molecules": _schema(MOLECULE_COLUMNS),
     "rings": _schema(RING_COLUMNS),
     "substituents": _schema(SUBSTITUENT_COLUMNS),
     "errors": _schema(ERROR_COLUMNS),
 }
-
-
-class TableBuffer:
-    """Column lists for one table of one chunk."""
-
-    def __init__(self, name: str) -> None:
-        self.name = name
-        self.schema = SCHEMAS[name]
-        self.columns: dict[str, list] = {f.name: [] for f in self.schema}
-        # (name, list) pairs read once: pyarrow builds a new list on every `schema.names`
-        self._value_columns = [(n, self.columns[n]) for n in self.schema.names[3:]]
-        self._key_columns = [self.columns[n] for n in self.schema.names[:3]]
-
-    def append(self, key: tuple[str, str, int], values: dict) -> None:
-        for col, v in zip(self._key_columns, key):
-            col.append(v)
-        get = values.get
-        for name, col in self._value_columns:
-            col.append(get(name))
-
-    def append_values(self, key: tuple[str, str, int], values: tuple) -> None:
-        """Append one row given as the value columns' values, in schema order."""
-        for col, v in zip(self._key_columns, key):
-            col.append(v)
-        for (_, col), v in zip(self._value_columns, values):
-            col.append(v)
-
-    def __len__(self) -> int:
-        return len(self.columns["mol_id"])
-
-    def to_arrow(self) -> pa.Table:
-        return columns_to_arrow(self.name, self.columns)
 
 
 def columns_to_arrow(name: str, columns: dict[str, list]) -> pa.Table:

@@ -19,7 +19,7 @@ from dataclasses import dataclass, field
 
 from libconf.errors import InputError
 from libconf.pipeline.readers import Record, truncate_raw
-from libconf.pipeline.tables import MOLECULE_COLUMNS, TABLES, TableBuffer, columns_to_arrow
+from libconf.pipeline.columns import MOLECULE_COLUMNS, TABLES, TableBuffer
 
 
 @dataclass(frozen=True)
@@ -213,6 +213,8 @@ class ChunkResult:
     def tables(self) -> dict:
         """Table name -> pyarrow.Table with the table's explicit schema."""
         if self._tables is None:
+            from libconf.pipeline.tables import columns_to_arrow  # main process only: pyarrow
+
             self._tables = {n: columns_to_arrow(n, c) for n, c in self.columns.items()}
         return self._tables
 
