@@ -490,6 +490,8 @@ class EvalRow:
     note: str = ""
     mmff_1m0: float | None = None  # MMFF94 E(chair 1) - E(chair 0), 3D labels
     gfn2_1m0: float | None = None  # GFN2-xTB, the same
+    value_source: str = ""  # the engine ring's: table | model | mixed
+    ring_class: str = ""
 
 
 def evaluate(csv_path, medium: str = MEDIUM) -> dict:
@@ -536,7 +538,16 @@ def evaluate(csv_path, medium: str = MEDIUM) -> dict:
                 )
                 continue
             rows.append(
-                EvalRow(r["id"], r["smiles"], r["ring_atoms"], dg, d10 if major == 0 else -d10, abs(d10))
+                EvalRow(
+                    r["id"],
+                    r["smiles"],
+                    r["ring_atoms"],
+                    dg,
+                    d10 if major == 0 else -d10,
+                    abs(d10),
+                    value_source=ring.value_source,
+                    ring_class=ring.ring_class,
+                )
             )
     for x in rows:
         x.gfn2_1m0, x.mmff_1m0 = levels.get(x.id, (None, None))
@@ -553,6 +564,21 @@ def evaluate(csv_path, medium: str = MEDIUM) -> dict:
     # an unmatched or no-preference ring with a clear computed gap counts as a disagreement
     agree = [x for x in clear if x.dE is not None and x.dE > 0 and x.dG_flip]
     rho = _spearman([x.dG_flip for x in scored], [x.dE for x in scored])
+
+    def subset(label: str, keep) -> tuple:
+        sub = [x for x in scored if keep(x)]
+        sub_clear = [x for x in sub if x.dE_abs > CLEAR_KJ]
+        ok = sum(x.dE > 0 and bool(x.dG_flip) for x in sub_clear)
+        return (label, len(sub), len(sub_clear), ok, _spearman([x.dG_flip for x in sub], [x.dE for x in sub]))
+
+    # where the engine's values come from, and which ring classes: a diagnostic, not a target
+    by_source = [
+        subset(label, lambda x, v=v: x.value_source == v)
+        for v, label in (("table", "table values only"), ("model", "model values only"), ("mixed", "table and model"))
+    ]
+    by_class = [
+        subset(c, lambda x, c=c: x.ring_class == c) for c in ("cyclohexane", "piperidine", "morpholine")
+    ] + [subset("other classes", lambda x: x.ring_class not in ("cyclohexane", "piperidine", "morpholine"))]
     mae = sum(abs(x.dG_flip - x.dE) for x in scored) / len(scored) if scored else None
     return {
         "medium": medium,
@@ -567,6 +593,8 @@ def evaluate(csv_path, medium: str = MEDIUM) -> dict:
         "spearman": rho,
         "mae_kjmol": mae,
         "by_bin": by_bin,
+        "by_source": by_source,
+        "by_class": by_class,
         "mmff94_vs_gfn2_agreement": mmff_vs_gfn2,
         "worst": sorted(scored, key=lambda x: -abs(x.dG_flip - x.dE))[:10],
         "rows_detail": rows,
@@ -692,6 +720,16 @@ def format_evaluation(s: dict) -> str:
         "| engine dG_flip, kJ/mol | rings | agree |",
         "|---|---|---|",
         *[f"| {lo:g}-{hi:g} | {n} | {k} |" for lo, hi, n, k in s["by_bin"]],
+        "",
+        "By where the engine's values for the ring come from (table: published experiment; model:",
+        "the regression model trained on GFN2-xTB values calibrated to experiment) and by ring class:",
+        "",
+        "| rings | compared | clear | agree | Spearman rho |",
+        "|---|---|---|---|---|",
+        *[
+            f"| {label} | {n} | {nc} | {k} ({num(None if not nc else 100 * k / nc, '.0f')} %) | {num(rho)} |"
+            for label, n, nc, k, rho in s.get("by_source", []) + s.get("by_class", [])
+        ],
         "",
         "Worst 10 (engine dG_flip vs GFN2-xTB dE = E(engine's minor chair) - E(its major), kJ/mol):",
         "",
