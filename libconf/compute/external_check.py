@@ -494,6 +494,9 @@ class EvalRow:
     ring_class: str = ""
 
 
+_BREAKDOWN_CLASSES = ("cyclohexane", "piperidine", "morpholine")  # the classes most rings of the set fall in
+
+
 def evaluate(csv_path, medium: str = MEDIUM) -> dict:
     """Compare the engine as it is now with the stored GFN2-xTB chair energies."""
     import libconf
@@ -576,9 +579,9 @@ def evaluate(csv_path, medium: str = MEDIUM) -> dict:
         subset(label, lambda x, v=v: x.value_source == v)
         for v, label in (("table", "table values only"), ("model", "model values only"), ("mixed", "table and model"))
     ]
-    by_class = [
-        subset(c, lambda x, c=c: x.ring_class == c) for c in ("cyclohexane", "piperidine", "morpholine")
-    ] + [subset("other classes", lambda x: x.ring_class not in ("cyclohexane", "piperidine", "morpholine"))]
+    by_class = [subset(c, lambda x, c=c: x.ring_class == c) for c in _BREAKDOWN_CLASSES] + [
+        subset("other classes", lambda x: x.ring_class not in _BREAKDOWN_CLASSES)
+    ]
     mae = sum(abs(x.dG_flip - x.dE) for x in scored) / len(scored) if scored else None
     return {
         "medium": medium,
@@ -629,8 +632,9 @@ def compare_references(csv_a, csv_b) -> dict:
     from ..audit import _spearman
 
     a, b = _reference_rows(csv_a), _reference_rows(csv_b)
+    common = sorted(a.keys() & b.keys())
     pairs, unmatched = [], 0
-    for key in sorted(a.keys() & b.keys()):
+    for key in common:
         a0, a1, da = a[key]
         b0, b1, db = b[key]
         if (b0, b1) == (a0, a1):
@@ -656,7 +660,7 @@ def compare_references(csv_a, csv_b) -> dict:
     return {
         "a": str(csv_a),
         "b": str(csv_b),
-        "common": len(a.keys() & b.keys()),
+        "common": len(common),
         "compared": len(pairs),
         "unmatched": unmatched,
         "a_as_predictor": score(da, db),

@@ -23,11 +23,8 @@ from libconf.pipeline.columns import (  # noqa: F401  (re-exported)
 )
 from libconf.pipeline.failures import FatalError
 
-_KEY = [
-    pa.field("mol_id", pa.string(), nullable=False),
-    pa.field("input_file", pa.string(), nullable=False),
-    pa.field("input_row", pa.int64(), nullable=False),
-]
+_KEY_TYPES = {"mol_id": pa.string(), "input_file": pa.string(), "input_row": pa.int64()}
+_KEY = [pa.field(n, _KEY_TYPES[n], nullable=False) for n in KEY_COLUMNS]
 
 _STR, _F64, _I32, _BOOL = pa.string(), pa.float64(), pa.int32(), pa.bool_()
 
@@ -90,8 +87,6 @@ def _schema(columns: tuple[str, ...]) -> pa.Schema:
         raise RuntimeError(f"no Arrow type declared for result column(s) {missing}")
     return pa.schema(_KEY + [pa.field(c, COLUMN_TYPES[c]) for c in columns])
 
-
-assert tuple(f.name for f in _KEY) == KEY_COLUMNS
 
 SCHEMAS: dict[str, pa.Schema] = {
     "molecules": _schema(MOLECULE_COLUMNS),
